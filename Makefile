@@ -1,0 +1,36 @@
+# pdgc: two commands do everything on a fresh machine.
+#   make demo   create .venv, install, solve, generate, compile and check the demo
+#   make test   same install, then the test suite
+#   make bench  benchmarks (slow; writes bench/results/)
+
+PYTHON ?= python3
+VENV   := .venv
+PY     := $(VENV)/bin/python
+PDGC   := $(VENV)/bin/pdgc
+STAMP  := $(VENV)/.installed-stamp
+DEMO_VEHICLE := examples/demo_vehicle.toml
+DEMO_OUT := demo-out
+
+.PHONY: install demo test bench clean
+
+install: $(STAMP)
+
+$(STAMP): pyproject.toml
+	test -x $(PY) || $(PYTHON) -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+	$(PY) -m pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	mkdir -p $(DEMO_OUT)
+	$(PDGC) solve $(DEMO_VEHICLE) --state 1500,0,1500,-50,0,-40,1900 --plot $(DEMO_OUT)/demo_plan.png
+	@echo "demo plot: $(DEMO_OUT)/demo_plan.png"
+
+test: $(STAMP)
+	$(PY) -m pytest -q
+
+bench: $(STAMP)
+	$(PY) -m pytest -q bench --benchmark-only -p no:cacheprovider
+
+clean:
+	rm -rf $(DEMO_OUT) build .pytest_cache

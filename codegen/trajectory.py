@@ -1,0 +1,102 @@
+"""The answer every solver returns, in SI units, with an honest status."""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+#: Statuses, shared by the reference and every generated solver.
+OPTIMAL = "optimal"
+INFEASIBLE = "infeasible"
+ITERATION_LIMIT = "iteration_limit"
+NUMERICAL_TROUBLE = "numerical_trouble"
+BAD_INPUT = "bad_input"
+#: The target was out of reach; the answer is the least-miss landing, then
+#: least fuel at that miss (two-stage, Blackmore et al. 2010).
+LEAST_MISS = "least_miss"
+STATUSES = (OPTIMAL, INFEASIBLE, ITERATION_LIMIT, NUMERICAL_TROUBLE, BAD_INPUT, LEAST_MISS)
+SOLVED = (OPTIMAL, LEAST_MISS)
+
+
+@dataclass
+class Trajectory:
+    """A descent plan. Arrays have N+1 rows (nodes) or N rows (intervals).
+
+    ``objective`` is the scaled objective of the final solve (fuel kind: dt *
+    sum(sigma) in scaled units), used to compare solvers to each other.
+    ``iterations`` counts the interior-point iterations of the solve that
+    gave the answer; ``iterations_total`` those of the whole time-of-flight
+    search; ``iterations_max`` the most of any one solve in it.
+    """
+
+    status: str
+    solver: str
+    horizon: int
+    time_of_flight_s: float = math.nan
+    t_s: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    position_m: np.ndarray = field(default_factory=lambda: np.zeros((0, 3)))
+    velocity_mps: np.ndarray = field(default_factory=lambda: np.zeros((0, 3)))
+    mass_kg: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    thrust_n: np.ndarray = field(default_factory=lambda: np.zeros((0, 3)))
+    throttle: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    accel_slack_mps2: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    accel_mps2: np.ndarray = field(default_factory=lambda: np.zeros((0, 3)))
+    fuel_kg: float = math.nan
+    landing_miss_m: float = math.nan
+    objective: float = math.nan
+    iterations: int = 0
+    iterations_total: int = 0
+    iterations_max: int = 0
+    solves: int = 0
+    solve_time_s: float = 0.0
+    message: str = ""
+
+    @property
+    def solved(self) -> bool:
+        return self.status in SOLVED
+
+    @property
+    def tightness_gap(self) -> float:
+        """Largest relative gap between |u| and sigma over the intervals.
+
+        Zero at a lossless optimum (Acikmese & Ploen 2007)."""
+        if not self.solved or len(self.accel_slack_mps2) == 0:
+            return math.nan
+        norm_u = np.linalg.norm(self.accel_mps2, axis=1)
+        return float(np.max(np.abs(self.accel_slack_mps2 - norm_u) / np.maximum(self.accel_slack_mps2, 1e-12)))
+
+    def to_dict(self) -> dict:
+        def arr(a):
+            return np.asarray(a, float).tolist()
+
+        def num(x):
+            return None if x is None or not math.isfinite(x) else float(x)
+
+        return {
+            "status": self.status,
+            "solver": self.solver,
+            "horizon": self.horizon,
+            "time_of_flight_s": num(self.time_of_flight_s),
+            "fuel_kg": num(self.fuel_kg),
+            "landing_miss_m": num(self.landing_miss_m),
+            "objective": num(self.objective),
+            "iterations": self.iterations,
+            "iterations_total": self.iterations_total,
+            "iterations_max": self.iterations_max,
+            "solves": self.solves,
+            "solve_time_s": self.solve_time_s,
+            "tightness_gap": num(self.tightness_gap),
+            "message": self.message,
+            "t_s": arr(self.t_s),
+            "position_m": arr(self.position_m),
+            "velocity_mps": arr(self.velocity_mps),
+            "mass_kg": arr(self.mass_kg),
+            "thrust_n": arr(self.thrust_n),
+            "throttle": arr(self.throttle),
+        }
+
+    def to_json(self) -> str:
+        return json.dumps(self.to_dict())

@@ -1,0 +1,217 @@
+"""The vehicle file: load, validate, describe.
+
+A vehicle file is TOML with SI units in every key name. Validation is strict:
+unknown keys (with the nearest known key suggested), missing keys, non-finite
+numbers and physically meaningless values are refused with an
+:class:`~codegen.errors.InputError` naming the key, the value and the rule.
+Values that are legal but suspicious (too little thrust to hover) come back as
+warnings on the loaded :class:`Vehicle`.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .errors import InputError
+
+#: Standard gravity, exact by definition (3rd CGPM, 1901; BIPM SI Brochure).
+G0_MPS2 = 9.80665
+
+# key -> (required, description). Order here is the order of the docs.
+VEHICLE_KEYS = {
+    "name": (True, "short identifier of the vehicle (letters, digits, - and _)"),
+    "mass_wet_kg": (True, "mass with full propellant"),
+    "mass_dry_kg": (True, "mass with no usable propellant"),
+    "thrust_max_n": (True, "total thrust of all engines at full throttle"),
+    "throttle_min": (True, "lowest throttle setting, fraction of thrust_max_n"),
+    "throttle_max": (True, "highest throttle setting, fraction of thrust_max_n"),
+    "isp_s": (True, "specific impulse"),
+    "engine_cant_deg": (False, "cant of the engines from the thrust axis (default 0)"),
+    "pointing_max_deg": (True, "largest angle of the thrust axis from vertical"),
+    "glide_slope_deg": (True, "smallest elevation of the vehicle seen from the target"),
+    "speed_max_mps": (True, "largest speed at any node"),
+    "gravity_mps2": (True, "magnitude of the constant gravity, acting along -up"),
+}
+
+ENVELOPE_KEYS = {
+    "position_min_m": (True, "lowest initial position [x, y, up]"),
+    "position_max_m": (True, "highest initial position [x, y, up]"),
+    "velocity_min_mps": (True, "lowest initial velocity [vx, vy, vup]"),
+    "velocity_max_mps": (True, "highest initial velocity [vx, vy, vup]"),
+    "mass_min_kg": (False, "lowest initial mass (default: wet mass)"),
+    "mass_max_kg": (False, "highest initial mass (default: wet mass)"),
+}
+
+
+@dataclass(frozen=True)
+class Envelope:
+    """Box of initial states the solver must handle (for checks and campaigns)."""
+
+    position_min_m: tuple
+    position_max_m: tuple
+    velocity_min_mps: tuple
+    velocity_max_mps: tuple
+    mass_min_kg: float
+    mass_max_kg: float
+
+
+@dataclass(frozen=True)
+class Vehicle:
+    """A validated vehicle. All values SI; derived bounds as properties."""
+
+    name: str
+    mass_wet_kg: float
+    mass_dry_kg: float
+    thrust_max_n: float
+    throttle_min: float
+    throttle_max: float
+    isp_s: float
+    engine_cant_deg: float
+    pointing_max_deg: float
+    glide_slope_deg: float
+    speed_max_mps: float
+    gravity_mps2: float
+    envelope: Envelope
+    source_sha256: str = ""
+    warnings: tuple = field(default=(), compare=False)
+
+    # Net thrust bounds along the thrust axis (engine cant loses cos(cant)).
+    @property
+    def thrust_lower_n(self) -> float:
+        return self.throttle_min * self.thrust_max_n * math.cos(math.radians(self.engine_cant_deg))
+
+    @property
+    def thrust_upper_n(self) -> float:
+        return self.throttle_max * self.thrust_max_n * math.cos(math.radians(self.engine_cant_deg))
+
+    @property
+    def mass_flow_per_n(self) -> float:
+        """alpha in m' = -alpha |T|: 1/(Isp g0 cos(cant)) (Acikmese & Ploen 2007)."""
+        return 1.0 / (self.isp_s * G0_MPS2 * math.cos(math.radians(self.engine_cant_deg)))
+
+    @property
+    def gravity_vector(self) -> tuple:
+        return (0.0, 0.0, -self.gravity_mps2)
+
+    def as_dict(self) -> dict:
+        out = {k: getattr(self, k) for k in VEHICLE_KEYS}
+        out["envelope"] = {k: getattr(self.envelope, k) for k in ENVELOPE_KEYS}
+        return out
+
+
+def _suggest(key: str, known) -> str:
+    near = difflib.get_close_matches(key, list(known), n=1, cutoff=0.5)
+    return f"did you mean '{near[0]}'?" if near else ""
+
+
+def _number(where: str, value) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(where, value, "must be a number")
+    v = float(value)
+    if not math.isfinite(v):
+        raise InputError(where, value, "must be a finite number (no nan or inf)")
+    return v
+
+
+def _vector3(where: str, value) -> tuple:
+    if not isinstance(value, list) or len(value) != 3:
+        raise InputError(where, value, "must be a list of three numbers")
+    return tuple(_number(f"{where}[{i}]", x) for i, x in enumerate(value))
+
+
+def _check_keys(table: dict, known: dict, prefix: str) -> None:
+    for key in table:
+        if key not in known:
+            raise InputError(prefix + key, table[key], "unknown key", _suggest(key, known))
+    for key, (required, desc) in known.items():
+        if required and key not in table:
+            raise InputError(prefix + key, None, f"missing required key ({desc})")
+
+
+def parse_vehicle(data: dict, source_sha256: str = "") -> Vehicle:
+    """Validate a parsed TOML document and return a :class:`Vehicle`."""
+    top = dict(data)
+    env = top.pop("envelope", None)
+    _check_keys(top, VEHICLE_KEYS, "")
+    if env is None:
+        raise InputError("envelope", None, "missing required table [envelope] (box of initial states)")
+    if not isinstance(env, dict):
+        raise InputError("envelope", env, "must be a table")
+    _check_keys(env, ENVELOPE_KEYS, "envelope.")
+
+    name = top["name"]
+    if not isinstance(name, str) or not name or not all(c.isalnum() or c in "-_" for c in name):
+        raise InputError("name", name, "must be a non-empty string of letters, digits, '-' and '_'")
+    v = {k: _number(k, top[k]) for k in VEHICLE_KEYS if k != "name" and k in top}
+    v.setdefault("engine_cant_deg", 0.0)
+
+    for k in ("mass_wet_kg", "mass_dry_kg", "thrust_max_n", "isp_s", "speed_max_mps", "gravity_mps2"):
+        if v[k] <= 0.0:
+            raise InputError(k, v[k], "must be > 0")
+    if v["mass_dry_kg"] >= v["mass_wet_kg"]:
+        raise InputError("mass_dry_kg", v["mass_dry_kg"],
+                         f"must be < mass_wet_kg = {v['mass_wet_kg']!r}")
+    for k in ("throttle_min", "throttle_max"):
+        if not 0.0 < v[k] <= 1.0:
+            raise InputError(k, v[k], "must lie in (0, 1]")
+    if v["throttle_min"] > v["throttle_max"]:
+        raise InputError("throttle_min", v["throttle_min"],
+                         f"must be <= throttle_max = {v['throttle_max']!r}")
+    if not 0.0 <= v["engine_cant_deg"] < 90.0:
+        raise InputError("engine_cant_deg", v["engine_cant_deg"], "must lie in [0, 90)")
+    if not 0.0 < v["pointing_max_deg"] <= 180.0:
+        raise InputError("pointing_max_deg", v["pointing_max_deg"], "must lie in (0, 180]")
+    if not 0.0 <= v["glide_slope_deg"] < 90.0:
+        raise InputError("glide_slope_deg", v["glide_slope_deg"], "must lie in [0, 90)")
+
+    e = {}
+    for k in ("position_min_m", "position_max_m", "velocity_min_mps", "velocity_max_mps"):
+        e[k] = _vector3("envelope." + k, env[k])
+    for lo, hi in (("position_min_m", "position_max_m"), ("velocity_min_mps", "velocity_max_mps")):
+        for i in range(3):
+            if e[lo][i] > e[hi][i]:
+                raise InputError(f"envelope.{lo}[{i}]", e[lo][i],
+                                 f"must be <= envelope.{hi}[{i}] = {e[hi][i]!r}")
+    if e["position_min_m"][2] <= 0.0:
+        raise InputError("envelope.position_min_m[2]", e["position_min_m"][2],
+                         "initial altitude must be > 0 (above the target)")
+    for k in ("mass_min_kg", "mass_max_kg"):
+        e[k] = _number("envelope." + k, env[k]) if k in env else v["mass_wet_kg"]
+        if not v["mass_dry_kg"] < e[k] <= v["mass_wet_kg"]:
+            raise InputError("envelope." + k, e[k],
+                             f"must lie in (mass_dry_kg, mass_wet_kg] = "
+                             f"({v['mass_dry_kg']!r}, {v['mass_wet_kg']!r}]")
+    if e["mass_min_kg"] > e["mass_max_kg"]:
+        raise InputError("envelope.mass_min_kg", e["mass_min_kg"],
+                         f"must be <= envelope.mass_max_kg = {e['mass_max_kg']!r}")
+
+    warnings = []
+    cant = math.cos(math.radians(v["engine_cant_deg"]))
+    hover_n = v["mass_dry_kg"] * v["gravity_mps2"]
+    upper_n = v["throttle_max"] * v["thrust_max_n"] * cant
+    if upper_n <= hover_n:
+        warnings.append(
+            f"thrust_max_n = {v['thrust_max_n']!r}: net thrust at throttle_max "
+            f"({upper_n:.6g} N) cannot hover the dry mass ({hover_n:.6g} N): "
+            "no soft landing is possible")
+    return Vehicle(name=name, envelope=Envelope(**e), source_sha256=source_sha256,
+                   warnings=tuple(warnings), **v)
+
+
+def load_vehicle(path) -> Vehicle:
+    """Read and validate a vehicle file. Raises InputError on any fault."""
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise InputError("vehicle file", str(path), f"cannot be read: {exc.strerror}") from None
+    try:
+        data = tomllib.loads(raw.decode("utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise InputError("vehicle file", str(path), f"is not valid TOML: {exc}") from None
+    return parse_vehicle(data, hashlib.sha256(raw).hexdigest())
