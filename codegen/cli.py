@@ -69,7 +69,8 @@ def cmd_init(args) -> int:
     return 0
 
 
-def print_table(rows, out=sys.stdout):
+def print_table(rows, out=None):
+    out = out or sys.stdout
     width = max(len(k) for k, _ in rows)
     for k, v in rows:
         print(f"  {k:<{width}}  {v}", file=out)

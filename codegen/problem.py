@@ -21,6 +21,7 @@ z = ln(m / mass_wet_kg) <= 0).
 Problem kinds:
   ``fuel``        least fuel, landing point fixed (the onboard problem);
   ``miss``        least horizontal landing miss (Blackmore et al. 2010, stage 1);
+                  the glide-slope cone then has its apex at the landing point;
   ``fuel_within`` least fuel with the miss bounded by a parameter (stage 2).
 """
 
@@ -228,7 +229,11 @@ class DescentProblem:
             cons += [u[2, :] >= c.cos_pointing * sig]
         cons += [cp.norm(v[:, 1:n], 2, axis=0) <= c.speed_max]
         if c.tan_glide_slope > 0.0:
-            rel = r[:, :n] - cp.reshape(P["target"], (3, 1), order="F")
+            # Apex of the approach cone: the target when the landing point is
+            # fixed; the actual landing point when it is free (the terrain the
+            # cone protects is where the vehicle lands).
+            apex = P["target"] if self.kind == "fuel" else r[:, n]
+            rel = r[:, :n] - cp.reshape(apex, (3, 1), order="F")
             cons += [c.tan_glide_slope * cp.norm(rel[:2, :], 2, axis=0) <= rel[2, :]]
         # Touchdown: at rest, on the target's altitude.
         cons += [v[:, n] == 0, r[2, n] == P["target"][2]]

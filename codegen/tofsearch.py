@@ -13,6 +13,10 @@ narrow; plain golden section can step past it. So:
    found so far, never away from it.
 3. the answer is the best point evaluated (no re-solve).
 
+A feasible window narrower than (bracket length) / 64 may be missed: the
+grid is then at its finest (GRID_POINTS = 9, three refinements). The worst
+case (nothing feasible) costs 9 + 8 + 16 + 32 = 65 solves.
+
 The generated C runs the same algorithm, step for step (templates/), so the
 two agree on the sequence of times they try. Every loop is bounded.
 """

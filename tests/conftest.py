@@ -1,0 +1,33 @@
+"""Shared fixtures: the invented demo vehicle and small helpers."""
+
+from pathlib import Path
+
+import pytest
+
+from codegen.vehicle import load_vehicle, parse_vehicle
+
+ROOT = Path(__file__).resolve().parent.parent
+DEMO_VEHICLE = ROOT / "examples" / "demo_vehicle.toml"
+
+#: A nominal state inside the demo envelope: position (m), velocity (m/s), mass (kg).
+DEMO_STATE = ([1500.0, 0.0, 1500.0], [-50.0, 0.0, -40.0], 1900.0)
+
+
+@pytest.fixture(scope="session")
+def demo_vehicle():
+    return load_vehicle(DEMO_VEHICLE)
+
+
+def paper_example_vehicle():
+    """The Mars example of Acikmese & Ploen 2007 / Blackmore et al. 2010, as
+    reproduced in secondary sources (see CHECKS.md of the design notes): six
+    3100 N engines canted 27 deg, throttle 0.3-0.8, Isp 225 s, 1905/1505 kg,
+    glide slope 4 deg, no pointing limit. The speed limit is not part of the
+    example; it is set high enough never to bind."""
+    return parse_vehicle(dict(
+        name="paper-example", mass_wet_kg=1905.0, mass_dry_kg=1505.0,
+        thrust_max_n=6 * 3100.0, throttle_min=0.3, throttle_max=0.8, isp_s=225.0,
+        engine_cant_deg=27.0, pointing_max_deg=180.0, glide_slope_deg=4.0,
+        speed_max_mps=500.0, gravity_mps2=3.7114,
+        envelope=dict(position_min_m=[0.0, 0.0, 1000.0], position_max_m=[2000.0, 0.0, 1500.0],
+                      velocity_min_mps=[100.0, 0.0, -75.0], velocity_max_mps=[100.0, 0.0, -75.0])))
