@@ -1,0 +1,245 @@
+"""Render a self-contained C tree for one vehicle, horizon and backend.
+
+The tree (see templates/README.md.j2) holds the backend's solver sources, the
+guidance layer rendered from templates/, build files, an example program, a
+README for this vehicle, a copy of the vehicle file and manifest.json with
+the hash of every file. Output is deterministic: the same inputs give the
+same bytes (no timestamps, no absolute paths), and the tree is written
+beside its destination and swapped in, so an interrupted run leaves either
+the old tree or the new one, never half of one.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import keyword
+import math
+import re
+import shutil
+import tempfile
+import time
+from pathlib import Path
+
+import jinja2
+
+from . import __version__, tofsearch
+from .backends import DEFAULT_BACKEND, get_backend
+from .canonical import extract
+from .errors import InputError
+from .problem import MASS_FLOOR_FRACTION, DescentProblem
+from .vehicle import VEHICLE_KEYS, load_vehicle
+
+TEMPLATES = Path(__file__).resolve().parent.parent / "templates"
+DEFAULT_PREFIX = "pdg"
+DEFAULT_MAX_ITER = 100
+MAX_ITER_CAP = 200
+_C_KEYWORDS = {"auto", "break", "case", "char", "const", "continue", "default", "do", "double",
+               "else", "enum", "extern", "float", "for", "goto", "if", "inline", "int", "long",
+               "register", "restrict", "return", "short", "signed", "sizeof", "static", "struct",
+               "switch", "typedef", "union", "unsigned", "void", "volatile", "while", "_Bool",
+               "_Complex", "_Imaginary"}
+
+
+def c_literal(x) -> str:
+    """Exact C literal of a double: Python's repr round-trips."""
+    if isinstance(x, bool):
+        raise TypeError("bool is not a C number")
+    v = float(x)
+    if not math.isfinite(v):
+        raise ValueError(f"{x!r} cannot be rendered as a finite C literal")
+    r = repr(v)
+    if not any(ch in r for ch in ".en"):
+        r += ".0"
+    return r
+
+
+def check_prefix(prefix: str) -> str:
+    if not isinstance(prefix, str) or not re.fullmatch(r"[A-Za-z][A-Za-z0-9_]{0,15}", prefix):
+        raise InputError("--prefix", prefix,
+                         "must be a C identifier: a letter, then up to 15 letters, digits or _")
+    if prefix in _C_KEYWORDS or keyword.iskeyword(prefix):
+        raise InputError("--prefix", prefix, "must not be a C keyword")
+    if prefix.lower().startswith("cpg"):
+        raise InputError("--prefix", prefix, "must not start with 'cpg' (used by cvxpygen's code)")
+    return prefix
+
+
+def environment() -> jinja2.Environment:
+    env = jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATES)),
+                             undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
+                             autoescape=False)
+    env.filters["c"] = c_literal
+    return env
+
+
+def _sha256(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND,
+             prefix: str = DEFAULT_PREFIX, precision: str = "double", progress=None) -> dict:
+    """Generate the tree; returns the manifest (as a dict)."""
+    say = progress or (lambda msg: None)
+    check_prefix(prefix)
+    if precision not in ("double", "single"):
+        raise InputError("--precision", precision, "must be 'double' or 'single'")
+    if not isinstance(horizon, int) or horizon < 2 or horizon > 1000:
+        raise InputError("--horizon", horizon, "must be an integer from 2 to 1000")
+    vehicle_path = Path(vehicle_path)
+    vehicle = load_vehicle(vehicle_path)
+    vehicle_bytes = vehicle_path.read_bytes()
+    be = get_backend(backend)
+    if precision != "double" and backend != "native":
+        raise InputError("--precision", precision, f"backend {backend} supports double only")
+
+    t0 = time.perf_counter()
+    say(f"building the descent problem (N = {horizon})")
+    dp = DescentProblem(vehicle, horizon, "fuel")
+    prog = extract(dp)
+    env = environment()
+    n = horizon
+    ctx = {
+        "prefix": prefix, "PREFIX": prefix.upper(), "version": __version__,
+        "vehicle": vehicle, "vehicle_sha256": vehicle.source_sha256, "N": n,
+        "backend": backend, "precision": precision, "s": dp.scaling, "k": dp.constants,
+        "mass_floor_fraction": MASS_FLOOR_FRACTION,
+        "grid_points": tofsearch.GRID_POINTS, "grid_refinements": tofsearch.GRID_REFINEMENTS,
+        "grid_max": (tofsearch.GRID_POINTS - 1) * 2 ** tofsearch.GRID_REFINEMENTS + 1,
+        "golden_max_steps": tofsearch.GOLDEN_MAX_STEPS, "inv_phi": tofsearch.INV_PHI,
+        "tof_tolerance": tofsearch.TOLERANCE_S, "layout": dp.parameter_layout,
+        "nparam": sum(size for _, _, size in dp.parameter_layout),
+        "default_max_iter": DEFAULT_MAX_ITER, "max_iter_cap": MAX_ITER_CAP,
+    }
+
+    def render(name, context):
+        return env.get_template(name).render(**context)
+
+    say(f"generating the {backend} solver")
+    out = be.generate(dp, dict(ctx, prog=prog), render)
+    ctx["reentrant"] = out.reentrant
+    ctx["heap_free"] = out.heap_free
+
+    env_ = vehicle.envelope
+    mid = lambda lo, hi: [c_literal((a + b) / 2.0) for a, b in zip(lo, hi)]  # noqa: E731
+    doubles = ctx["nparam"] + 3 * (n + 1) * 2 + (n + 1) + 3 * n + n + 2
+    ws_bytes = out.backend_bytes + 8 * doubles + 4 * 7
+    plan_bytes = 4 + 8 * 4 + 4 * 4 + 8 * ((n + 1) * 8 + n * 7)
+    grid_max = ctx["grid_max"]
+    ctx.update({
+        "mid_position": mid(env_.position_min_m, env_.position_max_m),
+        "mid_velocity": mid(env_.velocity_min_mps, env_.velocity_max_mps),
+        "mid_mass": c_literal((env_.mass_min_kg + env_.mass_max_kg) / 2.0),
+        "print_every": max(1, n // 10),
+        "backend_header": out.backend_header, "backend_fields": out.backend_fields,
+        "workspace_bytes": ws_bytes, "plan_bytes": plan_bytes,
+        "stack_scratch_bytes": 8 * 4 * grid_max,
+        "max_solves": grid_max + 2 + tofsearch.GOLDEN_MAX_STEPS,
+        "sizes": {"n": int(prog.n), "p": int(prog.p), "m": int(prog.m), "nonneg": int(prog.nonneg),
+                  "soc": len(prog.soc)},
+        "vehicle_rows": [(k, c_literal(getattr(vehicle, k)) if k != "name" else vehicle.name)
+                         for k in VEHICLE_KEYS],
+        "backend_note": out.info.get("note", f"{out.info.get('solver', backend)} "
+                                             f"(generated by {out.info.get('generator', 'pdgc')})"),
+        "solver_settings": out.info.get("settings_rows", []),
+    })
+
+    guidance_sources = [f"src/{prefix}_guidance.c", f"src/{prefix}_backend.c"]
+    include_dirs = ["include"] + out.include_dirs
+    objects = []
+    for src in guidance_sources + out.solver_sources:
+        strict = src in guidance_sources or out.solver_strict
+        obj = "build/obj/" + src.replace("/", "__")[:-2] + ".o"
+        objects.append((src, obj, strict))
+    build_ctx = dict(ctx, objects=objects, include_dirs=include_dirs, defines=out.defines,
+                     solver_flags="-std=c99 -Wall -Wextra -Werror" if out.solver_strict else "",
+                     solver_strict=out.solver_strict)
+
+    files = dict(out.files)
+    files[f"include/{prefix}_guidance.h"] = render("guidance.h.j2", ctx).encode()
+    files[f"include/{prefix}_backend.h"] = render("backend.h.j2", ctx).encode()
+    files[f"src/{prefix}_guidance.c"] = render("guidance.c.j2", ctx).encode()
+    files[f"src/{prefix}_backend.c"] = out.adapter_c.encode()
+    files[f"example/{prefix}_example.c"] = render("example.c.j2", ctx).encode()
+    files["Makefile"] = render("Makefile.j2", build_ctx).encode()
+    files["CMakeLists.txt"] = render("CMakeLists.txt.j2", build_ctx).encode()
+    files["README.md"] = render("README.md.j2", ctx).encode()
+    files["vehicle.toml"] = vehicle_bytes
+
+    manifest = {
+        "tool": "pdgc",
+        "version": __version__,
+        "backend": backend,
+        "horizon": n,
+        "prefix": prefix,
+        "precision": precision,
+        "vehicle": {"file": "vehicle.toml", "name": vehicle.name,
+                    "sha256": vehicle.source_sha256},
+        "options": {"max_iterations_default": DEFAULT_MAX_ITER,
+                    "max_iterations_cap": MAX_ITER_CAP,
+                    "tof_tolerance_s": tofsearch.TOLERANCE_S},
+        "build": {"guidance_sources": guidance_sources, "solver_sources": out.solver_sources,
+                  "include_dirs": include_dirs, "defines": out.defines,
+                  "solver_strict": out.solver_strict},
+        "reentrant": out.reentrant,
+        "heap_free": out.heap_free,
+        "problem": ctx["sizes"] | {"nparam": ctx["nparam"]},
+        "files": {path: _sha256(data) for path, data in sorted(files.items())},
+    }
+    files["manifest.json"] = (json.dumps(manifest, indent=2, sort_keys=True) + "\n").encode()
+    say(f"writing {len(files)} files to {out_dir}")
+    write_tree(Path(out_dir), files)
+    manifest["generation_seconds"] = time.perf_counter() - t0
+    return manifest
+
+
+def write_tree(out_dir: Path, files: dict) -> None:
+    """Write all files into a fresh directory beside out_dir, then swap it in."""
+    out_dir = out_dir.resolve()
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    if out_dir.exists() and not (out_dir / "manifest.json").exists() and any(out_dir.iterdir()):
+        raise InputError("--out", str(out_dir),
+                         "exists, is not empty and holds no pdgc tree (manifest.json): "
+                         "refusing to replace it")
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+    try:
+        for rel, data in files.items():
+            path = tmp / rel
+            path.parent.mkdir(parents=True, exist_ok=True)
+            path.write_bytes(data)
+        tmp.chmod(0o755)
+        old = None
+        if out_dir.exists():
+            old = out_dir.parent / f".{out_dir.name}.old-{tmp.name[-8:]}"
+            out_dir.rename(old)
+        tmp.rename(out_dir)
+        if old is not None:
+            shutil.rmtree(old)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+
+
+def read_manifest(tree_dir) -> dict:
+    path = Path(tree_dir) / "manifest.json"
+    try:
+        return json.loads(path.read_text())
+    except FileNotFoundError:
+        raise InputError("DIR", str(tree_dir), "holds no manifest.json: not a pdgc tree") from None
+    except json.JSONDecodeError as exc:
+        raise InputError("manifest.json", str(path), f"is not valid JSON: {exc}") from None
+
+
+def verify_tree(tree_dir) -> dict:
+    """Check every file of the tree against the manifest's hashes."""
+    tree_dir = Path(tree_dir)
+    manifest = read_manifest(tree_dir)
+    for rel, digest in manifest["files"].items():
+        try:
+            data = (tree_dir / rel).read_bytes()
+        except FileNotFoundError:
+            raise InputError(rel, str(tree_dir / rel), "is listed in manifest.json but missing") from None
+        if _sha256(data) != digest:
+            raise InputError(rel, str(tree_dir / rel),
+                             "does not match its sha256 in manifest.json (edited after generation?)")
+    return manifest
