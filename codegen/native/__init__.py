@@ -1,0 +1,284 @@
+"""Native backend: our own static-memory interior-point SOCP solver, as C.
+
+``render(prog)`` turns a :class:`codegen.canonical.ConeProgram` into the text
+of ``{prefix}_socp.h`` and ``{prefix}_socp.c``: a primal-dual interior-point
+method (homogeneous self-dual embedding, Nesterov-Todd scaling, Mehrotra
+predictor-corrector) over a sparse LDL' of the KKT system whose ordering and
+symbolic factorisation are done here, in Python, at generation time
+(:mod:`codegen.native.symbolic`). The C only runs loops over the ``const``
+index arrays emitted here; its size grows with the number of nonzeros only
+through those arrays, never through code lines.
+
+The C API (PREFIX = prefix.upper()) is described in the generated header:
+``{prefix}_socp_settings_default``, ``{prefix}_socp_solve``, the workspace
+struct ``{prefix}_socp_work`` (``x``, ``y``, ``z``, ``s``, ``objective``,
+``iterations``, ``status``, ...) and ``enum {prefix}_socp_status``.
+"""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import jinja2
+import numpy as np
+
+from ..canonical import ConeProgram
+from ..errors import InputError
+from .symbolic import KKTSymbolic, analyse
+
+TEMPLATE_DIR = Path(__file__).resolve().parent.parent.parent / "templates" / "native"
+
+#: Compile-time cap on the iteration limit (the setting is clamped to it).
+MAX_ITER_CAP = 200
+
+#: Settings defaults by precision. Double: the tolerances of common embedded
+#: conic solvers (1e-8 relative; common practice). Single: float has about
+#: 7 significant digits (unit roundoff 6e-8), so feasibility and gap are
+#: asked to 1e-5 relative / 1e-4 infeasibility, with stronger regularisation.
+DEFAULTS = {
+    "double": {"tol_gap_abs": 1e-8, "tol_gap_rel": 1e-8, "tol_feas": 1e-8, "tol_infeas": 1e-8,
+               "max_iter": 100, "static_reg": 1e-8, "dynamic_reg_eps": 1e-13,
+               "dynamic_reg_delta": 2e-7, "refine_steps": 5, "refine_tol": 1e-13,
+               "step_fraction": 0.99},
+    "single": {"tol_gap_abs": 1e-5, "tol_gap_rel": 1e-5, "tol_feas": 1e-5, "tol_infeas": 1e-4,
+               "max_iter": 100, "static_reg": 1e-6, "dynamic_reg_eps": 1e-9,
+               "dynamic_reg_delta": 1e-5, "refine_steps": 5, "refine_tol": 1e-6,
+               "step_fraction": 0.99},
+}
+
+_PREFIX_RE = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
+
+
+def _check_args(prefix: str, precision: str, settings):
+    if not isinstance(prefix, str) or not _PREFIX_RE.match(prefix):
+        raise InputError("prefix", prefix, "must be a lower-case C identifier of at most 31 "
+                         "characters (letters, digits, _; starting with a letter)")
+    if precision not in DEFAULTS:
+        raise InputError("precision", precision, "must be 'double' or 'single'")
+    merged = dict(DEFAULTS[precision])
+    for key, val in (settings or {}).items():
+        if key not in merged:
+            raise InputError(f"settings.{key}", val,
+                             f"unknown setting; known: {', '.join(sorted(merged))}")
+        if key in ("max_iter", "refine_steps"):
+            if not isinstance(val, int) or isinstance(val, bool) or val < 0:
+                raise InputError(f"settings.{key}", val, "must be a non-negative integer")
+            if key == "max_iter" and val > MAX_ITER_CAP:
+                raise InputError("settings.max_iter", val, f"must be <= {MAX_ITER_CAP}")
+            if key == "refine_steps" and val > 32:
+                raise InputError("settings.refine_steps", val, "must be <= 32")
+        else:
+            try:
+                fval = float(val)
+            except (TypeError, ValueError):
+                raise InputError(f"settings.{key}", val, "must be a number") from None
+            if not (np.isfinite(fval) and fval > 0):
+                raise InputError(f"settings.{key}", val, "must be a finite positive number")
+            if key == "step_fraction" and not fval < 1:
+                raise InputError("settings.step_fraction", val, "must lie in (0, 1)")
+            val = fval
+        merged[key] = val
+    return merged
+
+
+def real_literal(value: float, precision: str) -> str:
+    """An exact C literal: the shortest round-trip decimal of the double (or of
+    the value rounded to float, with an f suffix)."""
+    if precision == "single":
+        f32 = np.float32(value)
+        if not np.isfinite(f32):
+            raise InputError("data value", value, "does not fit in single precision")
+        txt = np.format_float_scientific(f32, unique=True, trim="-")
+        if "." not in txt:
+            mant, exp = txt.split("e")
+            txt = f"{mant}.0e{exp}"
+        return txt + "f"
+    v = float(value)
+    if not np.isfinite(v):
+        raise InputError("data value", value, "must be finite")
+    txt = repr(v)
+    if "." not in txt and "e" not in txt and "inf" not in txt:
+        txt += ".0"
+    return txt
+
+
+def _wrap(items, per_line: int = 16) -> str:
+    items = list(items)
+    if not items:
+        return "0"
+    lines = []
+    for i in range(0, len(items), per_line):
+        lines.append(",".join(items[i:i + per_line]))
+    return ",\n".join(lines)
+
+
+def _ints(arr) -> str:
+    return _wrap([str(int(v)) for v in arr], 24)
+
+
+def _reals(arr, precision) -> str:
+    return _wrap([real_literal(v, precision) for v in arr], 6)
+
+
+def _affine_layout(prog: ConeProgram):
+    """The parameter map of all data, as one table over the data vector
+    data = [c | d | b | h | A values | G values]."""
+    n, p, m = prog.n, prog.p, prog.m
+    offs = {"c": 0, "d": n, "b": n + 1, "h": n + 1 + p, "A": n + 1 + p + m,
+            "G": n + 1 + p + m + prog.A.nnz}
+    ndata = offs["G"] + prog.G.nnz
+    base = np.zeros(ndata)
+    rows = {}                        # data index -> {param col: coef}
+    for key in "cdbhAG":
+        aff = getattr(prog, key)
+        mp = aff.map.tocsr()
+        if mp.shape[1] != prog.n_params + 1:
+            raise ValueError(f"{key}: map has {mp.shape[1]} columns, expected {prog.n_params + 1}")
+        if key in "cdbh":
+            targets = offs[key] + np.asarray(aff.indices, dtype=np.int64)
+        else:
+            targets = offs[key] + np.arange(aff.nnz)
+        for k in range(aff.nnz):
+            t = int(targets[k])
+            lo, hi = mp.indptr[k], mp.indptr[k + 1]
+            for q in range(lo, hi):
+                col, val = int(mp.indices[q]), float(mp.data[q])
+                if val == 0.0:
+                    continue
+                if col == prog.n_params:
+                    base[t] += val
+                else:
+                    d = rows.setdefault(t, {})
+                    d[col] = d.get(col, 0.0) + val
+    base_idx = np.flatnonzero(base)
+    prow_idx = sorted(rows)
+    prow_ptr = [0]
+    pcol, pcoef = [], []
+    for t in prow_idx:
+        for col in sorted(rows[t]):
+            if rows[t][col] != 0.0:
+                pcol.append(col)
+                pcoef.append(rows[t][col])
+        prow_ptr.append(len(pcol))
+    return dict(offs=offs, ndata=ndata, base_idx=base_idx, base_val=base[base_idx],
+                prow_idx=np.asarray(prow_idx, dtype=np.int64), prow_ptr=np.asarray(prow_ptr),
+                pcol=np.asarray(pcol, dtype=np.int64), pcoef=np.asarray(pcoef))
+
+
+def _check_program(prog: ConeProgram):
+    if prog.nonneg + sum(prog.soc) != prog.m:
+        raise InputError("ConeProgram.soc", prog.soc,
+                         f"nonneg ({prog.nonneg}) + sum of SOC sizes must equal m = {prog.m}")
+    for q in prog.soc:
+        if int(q) < 1:
+            raise InputError("ConeProgram.soc", prog.soc, "every SOC size must be >= 1")
+    if prog.n < 1:
+        raise InputError("ConeProgram.n", prog.n, "must be >= 1")
+
+
+_CACHE: dict = {}
+
+
+def _symbolic(prog: ConeProgram, ordering: str) -> KKTSymbolic:
+    key = (id(prog), ordering)
+    hit = _CACHE.get(key)
+    if hit is not None and hit[0] is prog:
+        return hit[1]
+    sym = analyse(prog.n, prog.p, prog.m, prog.A.indptr, prog.A.indices, prog.G.indptr,
+                  prog.G.indices, prog.nonneg, prog.soc, ordering)
+    _CACHE.clear()
+    _CACHE[key] = (prog, sym)
+    return sym
+
+
+def _context(prog, prefix, precision, settings, ordering):
+    _check_program(prog)
+    defaults = _check_args(prefix, precision, settings)
+    sym = _symbolic(prog, ordering)
+    aff = _affine_layout(prog)
+    soc = [int(q) for q in prog.soc]
+    soc_start = list(np.cumsum([prog.nonneg] + soc[:-1])) if soc else []
+    nnz_zoff = sum(q * (q - 1) // 2 for q in soc)
+
+    def alloc(v):
+        return max(1, int(v))
+
+    lit = {k: real_literal(v, precision) for k, v in defaults.items()
+           if k not in ("max_iter", "refine_steps")}
+    ctx = dict(
+        prefix=prefix, PREFIX=prefix.upper(), precision=precision,
+        single=precision == "single", ctype="float" if precision == "single" else "double",
+        n_params=prog.n_params, n=prog.n, p=prog.p, m=prog.m, nonneg=prog.nonneg, nsoc=len(soc),
+        dim=sym.dim, nnz_kkt=sym.nnz_kkt, nnz_L=sym.nnz_L, ndata=aff["ndata"],
+        max_iter_cap=MAX_ITER_CAP, off_d=aff["offs"]["d"], off_b=aff["offs"]["b"],
+        off_h=aff["offs"]["h"], off_A=aff["offs"]["A"], off_G=aff["offs"]["G"],
+        nnz_A=prog.A.nnz, nnz_G=prog.G.nnz, nnz_zoff=nnz_zoff,
+        nbase=len(aff["base_idx"]), nprow=len(aff["prow_idx"]),
+        defaults=defaults, lit=lit, ordering=sym.ordering,
+        alloc=dict(p=alloc(prog.p), m=alloc(prog.m), nsoc=alloc(len(soc)),
+                   nnz_L=alloc(sym.nnz_L), nnz_A=alloc(prog.A.nnz), nnz_G=alloc(prog.G.nnz),
+                   nnz_zoff=alloc(nnz_zoff), nbase=alloc(len(aff["base_idx"])),
+                   nprow=alloc(len(aff["prow_idx"])), npcoef=alloc(len(aff["pcol"]))),
+        base_idx=_ints(aff["base_idx"]), base_val=_reals(aff["base_val"], precision),
+        prow_idx=_ints(aff["prow_idx"]), prow_ptr=_ints(aff["prow_ptr"]),
+        pcol=_ints(aff["pcol"]), pcoef=_reals(aff["pcoef"], precision),
+        a_ptr=_ints(prog.A.indptr), a_row=_ints(prog.A.indices),
+        g_ptr=_ints(prog.G.indptr), g_row=_ints(prog.G.indices),
+        soc_start=_ints(soc_start), soc_size=_ints(soc),
+        perm=_ints(sym.perm), k_ptr=_ints(sym.Kp), k_row=_ints(sym.Ki),
+        pos_xdiag=_ints(sym.pos_xdiag), pos_ydiag=_ints(sym.pos_ydiag),
+        pos_zdiag=_ints(sym.pos_zdiag), pos_A=_ints(sym.pos_A), pos_G=_ints(sym.pos_G),
+        pos_zoff=_ints(sym.pos_zoff), l_ptr=_ints(sym.Lp), l_row=_ints(sym.Li),
+        r_ptr=_ints(sym.Rp), r_col=_ints(sym.Rj),
+    )
+    return ctx, sym, defaults
+
+
+def _env() -> jinja2.Environment:
+    return jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATE_DIR)),
+                              undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
+                              autoescape=False)
+
+
+def render(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
+           settings: dict | None = None, ordering: str = "auto") -> dict:
+    """C source of the solver for ``prog``: {filename: text}.
+
+    ``settings`` overrides the defaults compiled into
+    ``{prefix}_socp_settings_default`` (keys as in :data:`DEFAULTS`).
+    ``ordering``: "auto" (smaller nnz(L) of minimum degree and reverse
+    Cuthill-McKee), "mindegree", "rcm" or "natural". Deterministic: the same
+    input gives the same bytes.
+    """
+    ctx, _, _ = _context(prog, prefix, precision, settings, ordering)
+    env = _env()
+    return {f"{prefix}_socp.h": env.get_template("socp.h.j2").render(**ctx),
+            f"{prefix}_socp.c": env.get_template("socp.c.j2").render(**ctx)}
+
+
+def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
+             settings: dict | None = None, ordering: str = "auto") -> dict:
+    """Sizes and defaults of the solver ``render`` would generate."""
+    ctx, sym, defaults = _context(prog, prefix, precision, settings, ordering)
+    rb = 4 if precision == "single" else 8
+    a = ctx["alloc"]
+    dim, n, p, m = sym.dim, prog.n, a["p"], a["m"]
+    reals = (ctx["ndata"] + n + p + 2 * m + 2            # data, x, y, z, s, tau, kappa
+             + 2 * m + a["nsoc"]                         # lambda, ntw, eta
+             + sym.nnz_kkt + a["nnz_L"] + 3 * dim        # kkt, lx, dg, dinv, scat
+             + 5 * dim                                   # rhs, u0, u1, res, corr
+             + n + p + m + n + p + 5 * m + 2             # residuals, directions, scratch
+             + 6)                                        # objective, pres, dres, gap, mu
+    ints = dim + 3
+    return {
+        "precision": precision, "prefix": prefix,
+        "n_params": prog.n_params, "n": prog.n, "p": prog.p, "m": prog.m,
+        "nonneg": prog.nonneg, "soc": len(prog.soc),
+        "soc_sizes": sorted(set(int(q) for q in prog.soc)),
+        "kkt_dim": dim, "kkt_nnz": sym.nnz_kkt, "L_nnz": sym.nnz_L,
+        "ordering": sym.ordering, "L_nnz_by_ordering": dict(sym.nnz_L_tried),
+        "workspace_bytes": reals * rb + ints * 4,
+        "max_iter_cap": MAX_ITER_CAP,
+        "settings": dict(defaults),
+    }
