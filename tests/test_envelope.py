@@ -1,0 +1,331 @@
+"""Envelope campaigns: reproducible records, resume, engines, report, replay.
+
+These run on a dry-run tree (manifest backend "reference": the generated
+solver is the reference itself, see codegen.envelope.open_solvers), N = 10,
+and a few tens of cases, so they stay light.
+"""
+
+import contextlib
+import io
+import json
+import os
+import re
+import shlex
+import shutil
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from codegen import cli, envelope as E
+from codegen.dispersions import load_dispersions
+from codegen.errors import InputError
+from codegen.trajectory import OPTIMAL
+from conftest import DEMO_VEHICLE, ROOT
+
+PDGC = [sys.executable, "-m", "codegen.cli"]
+
+DISPERSIONS = """\
+# Test dispersions (invented): fixed-window times of flight so that some cases
+# are out of reach and take the two-stage path, others are infeasible.
+seed = 11
+time_of_flight_s = { distribution = "uniform", low = 25.0, high = 70.0 }
+[position_m]
+x = { distribution = "uniform", low = 500.0, high = 6000.0 }
+y = { distribution = "normal", mean = 0.0, std = 200.0 }
+up = { distribution = "truncated_normal", mean = 1400.0, std = 300.0, low = 600.0, high = 2000.0 }
+[velocity_mps]
+x = { distribution = "normal", mean = -50.0, std = 8.0 }
+y = { distribution = "fixed", value = 0.0 }
+up = { distribution = "uniform", low = -55.0, high = -25.0 }
+[mass_kg]
+distribution = "uniform"
+low = 1850.0
+high = 1900.0
+"""
+
+CASES = 24
+EVERY = 4
+
+
+def make_tree(path: Path, horizon: int = 10, backend: str = "reference") -> Path:
+    path.mkdir(parents=True, exist_ok=True)
+    shutil.copy(DEMO_VEHICLE, path / "vehicle.toml")
+    (path / "manifest.json").write_text(json.dumps(
+        {"backend": backend, "horizon": horizon, "prefix": "dryrun"}))
+    return path
+
+
+@pytest.fixture(scope="module")
+def setup(tmp_path_factory):
+    base = tmp_path_factory.mktemp("envelope")
+    tree = make_tree(base / "tree")
+    disp = base / "disp.toml"
+    disp.write_text(DISPERSIONS)
+    return base, tree, disp
+
+
+def run_inprocess(run_dir, tree, disp, cases=CASES, workers=1, scheduler=None, every=EVERY):
+    d = load_dispersions(disp)
+    man = E.prepare_run(run_dir, tree, d, disp, cases, every, None)
+    E.run_campaign(run_dir, man, workers=workers, scheduler=scheduler, progress=False)
+    return man
+
+
+def records_of(run_dir):
+    lines = (Path(run_dir) / E.RESULTS_NAME).read_text().splitlines()
+    recs = [json.loads(x) for x in lines]
+    return sorted(recs, key=lambda r: r["case"]), len(lines)
+
+
+@pytest.fixture(scope="module")
+def straight_run(setup):
+    """One uninterrupted run in this process: the yardstick of the others."""
+    base, tree, disp = setup
+    run = base / "straight"
+    man = run_inprocess(run, tree, disp)
+    recs, lines = records_of(run)
+    return run, man, recs
+
+
+def stripped(recs):
+    return [E.strip_measured(r) for r in recs]
+
+
+def test_every_case_once_with_reference_where_due(straight_run):
+    run, man, recs = straight_run
+    assert [r["case"] for r in recs] == list(range(CASES))
+    statuses = {r["generated"]["status"] for r in recs}
+    assert len(statuses) >= 2, "the test dispersions should give more than one status"
+    limit = man["stand_out_iterations"]
+    assert limit >= 1
+    for r in recs:
+        g = r["generated"]
+        due = (r["case"] % EVERY == 0 or g["status"] != OPTIMAL or g["iterations_max"] > limit)
+        assert (r["reference"] is not None) == due
+        if due:
+            # Dry run: the "generated" solver is the reference, so they must
+            # agree exactly; any difference means a case depends on history.
+            assert r["reference"]["status"] == g["status"]
+            assert r["reference"]["iterations_total"] == g["iterations_total"]
+            if r["accuracy"]["fuel_diff_kg"] is not None:
+                assert r["accuracy"]["fuel_diff_kg"] == 0.0
+        assert r["inputs"]["position_m"] == list(
+            load_dispersions(Path(man["dispersions_file"])).case(r["case"]).position_m)
+
+
+def test_resume_after_kill_matches_uninterrupted_run(setup, straight_run):
+    base, tree, disp = setup
+    _, _, expected = straight_run
+    run = base / "killed"
+    cmd = PDGC + ["envelope", str(tree), "--dispersions", str(disp), "--cases", str(CASES),
+                  "--reference-every", str(EVERY), "--workers", "2", "--out", str(run)]
+    results = run / E.RESULTS_NAME
+    proc = subprocess.Popen(cmd, start_new_session=True, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL, cwd=ROOT)
+    try:
+        # Wait (bounded) for a few records, then kill the whole run hard.
+        for _ in range(1200):
+            if results.exists() and results.read_bytes().count(b"\n") >= 3:
+                break
+            if proc.poll() is not None:
+                break
+            time.sleep(0.05)
+        assert proc.poll() is None, "the run ended before it could be killed"
+        os.killpg(proc.pid, signal.SIGKILL)
+    finally:
+        proc.wait()
+    done_at_kill = results.read_bytes().count(b"\n")
+    assert 3 <= done_at_kill < CASES
+    # A kill in the middle of a write leaves a torn last line: simulate one.
+    with open(results, "ab") as fh:
+        fh.write(b'{"case": 9999, "inputs": {"posi')
+    second = subprocess.run(cmd + ["--no-progress"], capture_output=True, text=True, cwd=ROOT)
+    assert second.returncode == 0, second.stderr
+    assert f"({done_at_kill} already recorded" in second.stdout
+    recs, lines = records_of(run)
+    assert lines == CASES                          # no case twice, torn line gone
+    assert [r["case"] for r in recs] == list(range(CASES))
+    assert stripped(recs) == stripped(expected)
+    man = json.loads((run / E.MANIFEST_NAME).read_text())
+    assert sum(s["ran"] for s in man["sessions"]) == CASES - done_at_kill
+
+
+def test_dask_cluster_gives_the_same_records(setup, straight_run):
+    distributed = pytest.importorskip("distributed")
+    base, tree, disp = setup
+    _, _, expected = straight_run
+    run = base / "dask"
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  host="127.0.0.1", dashboard_address=None,
+                                  silence_logs=40) as cluster:
+        run_inprocess(run, tree, disp, scheduler=cluster.scheduler_address)
+    recs, lines = records_of(run)
+    assert lines == CASES
+    assert stripped(recs) == stripped(expected)
+    man = json.loads((run / E.MANIFEST_NAME).read_text())
+    assert man["sessions"][0]["engine"].startswith("dask scheduler tcp://127.0.0.1:")
+
+
+def test_resume_refuses_a_different_campaign(setup, straight_run):
+    base, tree, disp = setup
+    run, man, _ = straight_run
+    d = load_dispersions(disp).with_seed(12)
+    with pytest.raises(InputError) as err:
+        E.prepare_run(run, tree, d, disp, CASES, EVERY, None)
+    assert err.value.field == "seed"
+    with pytest.raises(InputError) as err:
+        E.prepare_run(run, tree, load_dispersions(disp), disp, CASES, EVERY + 1, None)
+    assert err.value.field == "reference_every"
+
+
+def test_summary_matches_records(straight_run):
+    run, man, recs = straight_run
+    s = E.summarise(run, worst=3)
+    assert s["cases_done"] == CASES and s["complete"]
+    assert sum(s["generated"]["status_counts"].values()) == CASES
+    it = np.array([r["generated"]["iterations_max"] for r in recs])
+    # Nearest-rank percentile = numpy's "inverted_cdf" method.
+    for p in (50, 90, 99, 99.9):
+        assert s["generated"]["iterations_max"][f"p{p:g}"] == int(
+            np.percentile(it, p, method="inverted_cdf"))
+    assert s["generated"]["iterations_max"]["worst"] == it.max()
+    assert s["reference"]["cases"] == sum(r["reference"] is not None for r in recs)
+    listed = {w["case"] for w in s["worst_cases"]}
+    assert int(np.argmax(it)) in listed or it.max() in {recs[c]["generated"]["iterations_max"]
+                                                         for c in listed}
+
+
+def run_cli(argv):
+    # cli.main() registers the stage sub-commands on each call; in one process
+    # the second call would register them twice, so start from none.
+    cli._EXTRA_COMMANDS.clear()
+    return cli.main(argv)
+
+
+def replay(line):
+    argv = shlex.split(line)
+    assert argv[:2] == ["pdgc", "solve"]
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out):
+        run_cli(argv[1:])
+    return json.loads(out.getvalue())
+
+
+@pytest.mark.parametrize("which", ["fixed_tof", "searched_tof"])
+def test_worst_cases_replay_to_the_same_status_and_iterations(setup, straight_run, which):
+    base, tree, _ = setup
+    if which == "fixed_tof":
+        run = straight_run[0]
+    else:   # the invented demo dispersions: time of flight searched
+        run = base / "searched"
+        run_inprocess(run, tree, ROOT / "examples" / "demo_dispersions.toml", cases=6, every=3)
+    s = E.summarise(run, worst=2)
+    by_case = {r["case"]: r for r in records_of(run)[0]}
+    assert s["worst_cases"]
+    for w in s["worst_cases"][:4]:
+        got = replay(w["replay"])
+        rec = by_case[w["case"]]["generated"]
+        for key in ("status", "iterations", "iterations_max", "iterations_total", "solves"):
+            assert got[key] == rec[key], (w["replay"], key)
+
+
+def chromium():
+    for name in ("chromium", "chromium-browser"):
+        path = shutil.which(name)
+        if path:
+            return path
+    if os.environ.get("CI"):
+        pytest.fail("chromium is missing: .ci/debian-packages must list it")
+    pytest.skip("chromium is not installed")
+
+
+def test_report_renders_in_headless_chromium(tmp_path, straight_run):
+    run = straight_run[0]
+    s = E.write_report(run, worst=3)
+    assert json.loads((run / "summary.json").read_text()) == json.loads(json.dumps(s))
+    html = (run / "report.html").read_text()
+    assert "http://" not in html and "https://" not in html   # self-contained
+    browser = chromium()
+    cmd = [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+           "--no-first-run", "--disable-background-networking", "--disable-component-update",
+           "--disable-sync", f"--user-data-dir={tmp_path / 'profile'}", "--enable-logging=stderr",
+           "--v=0", "--virtual-time-budget=5000", "--dump-dom", (run / "report.html").as_uri()]
+    done = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr[-2000:]
+    dom = done.stdout
+    body = re.search(r"<body([^>]*)>", dom).group(1)
+    assert 'data-rendered="yes"' in body            # the page's script ran to its end
+    n_img = int(re.search(r'data-images="(\d+)"', body).group(1))
+    n_ok = int(re.search(r'data-images-ok="(\d+)"', body).group(1))
+    assert n_img >= 4 and n_ok == n_img             # every embedded PNG decoded
+    for anchor in ("overview", "statuses", "iterations", "solve-time", "accuracy", "feasibility",
+                   "fuel-divert", "worst-cases", "inputs"):
+        assert f'id="{anchor}"' in dom
+    assert "pdgc solve" in dom
+    errors = [ln for ln in done.stderr.splitlines() if "CONSOLE" in ln or "Uncaught" in ln]
+    assert errors == []
+
+
+def test_derating_dry_run_and_refusal(tmp_path, setup, monkeypatch):
+    base, tree, _ = setup
+    disp = tmp_path / "derate.toml"
+    disp.write_text(DISPERSIONS + '[thrust_derate]\ndistribution = "uniform"\nlow = 0.6\nhigh = 0.8\n')
+    run = tmp_path / "run"
+    run_inprocess(run, tree, disp, cases=3, every=1)
+    recs, _ = records_of(run)
+    assert all(0.6 <= r["inputs"]["thrust_derate"] <= 0.8 for r in recs)
+    # Derated solves differ from full-thrust ones on the same inputs.
+    full, _ = E.open_solvers(tree)
+    r0 = recs[0]
+    args = (r0["inputs"]["position_m"], r0["inputs"]["velocity_mps"], r0["inputs"]["mass_kg"],
+            r0["inputs"]["time_of_flight_s"])
+    tr = full.solve(*args)
+    assert (tr.status, tr.fuel_kg) != (r0["generated"]["status"], r0["generated"]["fuel_kg"])
+    # A compiled solver without run-time thrust bounds refuses, naming the field.
+    compiled = make_tree(tmp_path / "compiled", backend="native")
+
+    class Baked:
+        name, horizon = "native", 10
+
+    monkeypatch.setattr(E, "_load_generated", lambda d, m: Baked())
+    with pytest.raises(InputError) as err:
+        E.prepare_run(tmp_path / "run2", compiled, load_dispersions(disp), disp, 3, 1, None)
+    assert err.value.field == "thrust_derate"
+    assert "baked in" in str(err.value)
+
+
+def test_cli_errors_name_the_field(tmp_path, setup, capsys):
+    _, tree, disp = setup
+    bad = tmp_path / "bad.toml"
+    bad.write_text(DISPERSIONS.replace('"fixed", value = 0.0', '"fixed", valeu = 0.0'))
+    rc = run_cli(["envelope", str(tree), "--dispersions", str(bad), "--cases", "2",
+                   "--out", str(tmp_path / "r")])
+    assert rc == 2
+    assert "velocity_mps.y.valeu" in capsys.readouterr().err
+    rc = run_cli(["envelope", str(tmp_path), "--dispersions", str(disp), "--cases", "2"])
+    assert rc == 2
+    assert "manifest.json" in capsys.readouterr().err
+
+
+def test_progress_line_shows_rate_and_eta():
+    out = io.StringIO()
+    bar = E.Progress(10, done=2, stream=out, every_s=0.0)
+    bar.update(3)
+    bar.finish()
+    text = out.getvalue()
+    assert "5/10" in text and "cases/s" in text and "ETA" in text
+
+
+def test_torn_last_line_is_dropped_and_damage_is_refused(tmp_path):
+    path = tmp_path / "r.jsonl"
+    path.write_bytes(b'{"case": 0}\n{"case": 1}\n{"case": 2, "inp')
+    assert [r["case"] for r in E.read_results(path)] == [0, 1]
+    assert path.read_bytes().endswith(b'{"case": 1}\n')
+    path.write_bytes(b'{"case": 0}\nnot json\n{"case": 2}\n')
+    with pytest.raises(InputError, match="line 2"):
+        E.read_results(path)
