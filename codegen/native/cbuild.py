@@ -72,7 +72,8 @@ class NativeSolver:
         status = self._solve(w, pp, settings if settings is not None else self.ffi.NULL)
         out = {"status": int(status), "objective": float(w.objective),
                "iterations": int(w.iterations), "pres": float(w.pres), "dres": float(w.dres),
-               "gap": float(w.gap), "dynamic_reg_count": int(w.dynamic_reg_count), "work": w}
+               "gap": float(w.gap), "dynamic_reg_count": int(w.dynamic_reg_count),
+               "numerical_cause": int(w.numerical_cause), "work": w}
         if sizes is not None:
             n, p, m = sizes
             out["x"] = self.vec(w, "x", n)
