@@ -78,6 +78,7 @@ class ReferenceSolver:
         if solver_options is None:
             solver_options = CLARABEL_TIGHT if solver == "CLARABEL" else {}
         self.solver_options = dict(solver_options)
+        self.retry_options = {} if solver == "CLARABEL" else None
         self._problems: dict = {}
 
     def problem(self, kind: str) -> DescentProblem:
@@ -92,19 +93,15 @@ class ReferenceSolver:
         dp.set_parameters(dp.values(position_m, velocity_mps, mass_kg, time_of_flight_s,
                                     target_m, miss_max_m))
         t0 = time.perf_counter()
-        try:
-            with warnings.catch_warnings():
-                # An inaccurate answer is reported through the status instead.
-                warnings.simplefilter("ignore", UserWarning)
-                dp.problem.solve(solver=self.solver, **self.solver_options)
-            status = _STATUS.get(dp.problem.status, NUMERICAL_TROUBLE)
-        except cp.error.SolverError as exc:
-            status, msg = NUMERICAL_TROUBLE, str(exc)
-        else:
-            msg = ""
+        status, msg, iters = self._solve_once(dp, self.solver_options)
+        if status == NUMERICAL_TROUBLE and self.retry_options is not None:
+            # Tight tolerances can stall short of them ("almost solved");
+            # the solver's own defaults are then the reference, and we say so.
+            status, msg, more = self._solve_once(dp, self.retry_options)
+            iters += more
+            if status == OPTIMAL:
+                msg = "solved at the solver's default tolerances (tight ones stalled)"
         elapsed = time.perf_counter() - t0
-        stats = dp.problem.solver_stats
-        iters = int(stats.num_iters or 0) if stats is not None else 0
         traj = Trajectory(status=status, solver=self.name, horizon=self.horizon,
                           time_of_flight_s=float(time_of_flight_s), iterations=iters,
                           iterations_total=iters, iterations_max=iters, solves=1,
@@ -113,6 +110,23 @@ class ReferenceSolver:
             fill_from_scaled(traj, dp, {k: v.value for k, v in dp.vars.items()},
                              float(dp.problem.value), target_m)
         return traj
+
+    def _solve_once(self, dp, options):
+        try:
+            with warnings.catch_warnings():
+                # An inaccurate answer is reported through the status instead.
+                warnings.simplefilter("ignore", UserWarning)
+                # warm_start=False: a fresh solver every time. Reusing the
+                # previous one (CVXPY's default) made answers depend on the
+                # order of solves: after an infeasible instance a feasible one
+                # came back "almost solved".
+                dp.problem.solve(solver=self.solver, warm_start=False, **options)
+            status, msg = _STATUS.get(dp.problem.status, NUMERICAL_TROUBLE), ""
+        except cp.error.SolverError as exc:
+            status, msg = NUMERICAL_TROUBLE, str(exc)
+        stats = dp.problem.solver_stats
+        iters = int(stats.num_iters or 0) if stats is not None else 0
+        return status, msg, iters
 
     # -- guidance: search and two-stage fallback -----------------------------
     def solve(self, position_m, velocity_mps, mass_kg, time_of_flight_s=None,
