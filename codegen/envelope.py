@@ -135,13 +135,14 @@ def _load_generated(solver_dir, man):
 class FreshEachCase:
     """A reference solver that starts every case as a new instance would.
 
-    CVXPY keeps the Clarabel solver of a problem between solves and, with its
-    default ``warm_start=True``, updates it in place; the answer of a case then
-    depends on the cases the instance solved before (seen here: a few
-    iterations and ~1e-3 relative fuel between a fresh and a used instance).
-    A campaign must not depend on which worker ran what before, and its replay
-    line (``pdgc solve``, a fresh process) must give the same answer, so the
-    cache is emptied before each case. The compiled problem is kept.
+    CVXPY keeps the Clarabel solver of a problem between solves and, with
+    ``warm_start=True`` (its default), updates it in place; the answer of a
+    case then depended on the cases the instance had solved before (seen: a
+    few iterations and ~1e-3 relative fuel between a fresh and a used
+    instance). A campaign must not depend on which worker ran what before,
+    and its replay line (``pdgc solve``, a fresh process) must give the same
+    answer, so the cache is emptied before each case whatever options the
+    reference uses. The compiled problem is kept.
     """
 
     def __init__(self, solver, name: str | None = None):

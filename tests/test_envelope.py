@@ -329,3 +329,28 @@ def test_torn_last_line_is_dropped_and_damage_is_refused(tmp_path):
     path.write_bytes(b'{"case": 0}\nnot json\n{"case": 2}\n')
     with pytest.raises(InputError, match="line 2"):
         E.read_results(path)
+
+
+def test_campaign_on_a_real_generated_tree(tmp_path):
+    """A tiny campaign on a tree from `pdgc generate` (horizon 10), replayed."""
+    pytest.importorskip("codegen.bind")
+    tree = tmp_path / "gen10"
+    assert run_cli(["generate", str(DEMO_VEHICLE), "--horizon", "10", "--out", str(tree)]) == 0
+    disp = tmp_path / "disp.toml"
+    disp.write_text(DISPERSIONS)
+    run = tmp_path / "run"
+    man = run_inprocess(run, tree, disp, cases=8, every=4)
+    assert man["solver_backend"] != E.DRY_RUN_BACKEND
+    recs, lines = records_of(run)
+    assert lines == 8 and [r["case"] for r in recs] == list(range(8))
+    for r in recs:
+        assert (r["reference"] is not None) == bool(r["reference_why"])
+        if r["case"] % 4 == 0:
+            assert "every_m" in r["reference_why"]
+    s = E.summarise(run, worst=1)
+    for w in s["worst_cases"][:3]:
+        assert "--solver-dir=" in w["replay"]
+        got = replay(w["replay"])
+        rec = recs[w["case"]]["generated"]
+        for key in ("status", "iterations", "iterations_max", "iterations_total", "solves"):
+            assert got[key] == rec[key], (w["replay"], key)
