@@ -166,6 +166,7 @@ _EXTRA_COMMANDS = []
 
 def _load_extras():
     import importlib
+    _EXTRA_COMMANDS.clear()
     for mod in ("codegen.cli_generate", "codegen.cli_envelope", "codegen.cli_simulate",
                 "codegen.cli_handoff"):
         try:
