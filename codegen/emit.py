@@ -55,9 +55,10 @@ def c_literal(x) -> str:
 
 
 def check_prefix(prefix: str) -> str:
-    if not isinstance(prefix, str) or not re.fullmatch(r"[A-Za-z][A-Za-z0-9_]{0,15}", prefix):
+    if not isinstance(prefix, str) or not re.fullmatch(r"[a-z][a-z0-9_]{0,15}", prefix):
         raise InputError("--prefix", prefix,
-                         "must be a C identifier: a letter, then up to 15 letters, digits or _")
+                         "must be a lower-case C identifier: a letter, then up to 15 "
+                         "lower-case letters, digits or _")
     if prefix in _C_KEYWORDS or keyword.iskeyword(prefix):
         raise InputError("--prefix", prefix, "must not be a C keyword")
     if prefix.lower().startswith("cpg"):

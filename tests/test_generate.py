@@ -144,7 +144,7 @@ def test_edited_tree_is_refused(ecos_tree, tmp_path):
         load_solver(copy)
 
 
-@pytest.mark.parametrize("prefix", ["9abc", "a-b", "int", "cpg_x", "", "averyveryverylongprefix"])
+@pytest.mark.parametrize("prefix", ["9abc", "a-b", "int", "cpg_x", "", "averyveryverylongprefix", "Pdg"])
 def test_prefix_must_be_c_identifier(prefix):
     with pytest.raises(InputError, match="--prefix"):
         check_prefix(prefix)
