@@ -27,6 +27,7 @@ img { max-width: 100%; height: auto; display: block; margin: 0.8em 0; }
 .caution { border: 2px solid #b00; padding: 0.6em 1em; background: #fff4f4; }
 .note { color: #555; font-size: 0.9em; }
 nav a { margin-right: 1em; }
+tr.note-row td { background: #fafafa; border-top: none; }
 """
 
 SCRIPT = """
@@ -74,20 +75,25 @@ def fmt(x, digits: int = 4) -> str:
     return esc(x)
 
 
-def table(headers, rows, text_columns=()) -> str:
+def table(headers, rows, text_columns=(), notes=None) -> str:
     """An HTML table; cells are formatted with :func:`fmt` unless already HTML
-    (pass ``Raw(...)``). Columns whose index is in ``text_columns`` align left."""
+    (pass ``Raw(...)``). Columns whose index is in ``text_columns`` align left.
+    ``notes[i]``, when given and not empty, is HTML shown in a full-width row
+    under row i."""
     out = ["<table>", "<tr>"]
     for j, h in enumerate(headers):
         cls = ' class="text"' if j in text_columns else ""
         out.append(f"<th{cls}>{esc(h)}</th>")
     out.append("</tr>")
-    for row in rows:
+    for i, row in enumerate(rows):
         out.append("<tr>")
         for j, cell in enumerate(row):
             cls = ' class="text"' if j in text_columns else ""
             out.append(f"<td{cls}>{cell.html if isinstance(cell, Raw) else fmt(cell)}</td>")
         out.append("</tr>")
+        note = notes[i] if notes is not None and i < len(notes) else ""
+        if note:
+            out.append(f'<tr class="note-row"><td class="text" colspan="{len(headers)}">{note}</td></tr>')
     out.append("</table>")
     return "\n".join(out)
 
