@@ -354,3 +354,21 @@ def test_campaign_on_a_real_generated_tree(tmp_path):
         rec = recs[w["case"]]["generated"]
         for key in ("status", "iterations", "iterations_max", "iterations_total", "solves"):
             assert got[key] == rec[key], (w["replay"], key)
+
+
+def test_cli_seed_override_and_extending_a_run(tmp_path, setup, capsys):
+    _, tree, disp = setup
+    out = tmp_path / "run"
+    argv = ["envelope", str(tree), "--dispersions", str(disp), "--seed", "3", "--workers", "1",
+            "--reference-every", "2", "--no-progress", "--out", str(out)]
+    assert run_cli(argv + ["--cases", "3"]) == 0
+    assert "(0 already recorded, 3 run now)" in capsys.readouterr().out
+    assert run_cli(argv + ["--cases", "5"]) == 0
+    text = capsys.readouterr().out
+    assert "(3 already recorded, 2 run now)" in text and "report.html" in text
+    recs, lines = records_of(out)
+    assert lines == 5
+    seeded = load_dispersions(disp).with_seed(3)
+    for r in recs:
+        assert r["inputs"]["mass_kg"] == seeded.case(r["case"]).mass_kg
+    assert json.loads((out / E.MANIFEST_NAME).read_text())["seed"] == 3
