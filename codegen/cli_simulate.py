@@ -1,0 +1,127 @@
+"""`pdgc simulate`: closed-loop Monte Carlo landings with a guidance solver tree."""
+
+from __future__ import annotations
+
+import sys
+
+
+def _float(name):
+    import argparse
+    import math
+
+    def conv(text):
+        try:
+            v = float(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{name} = {text!r}: must be a number") from None
+        if not math.isfinite(v):
+            raise argparse.ArgumentTypeError(f"{name} = {text!r}: must be finite")
+        return v
+    return conv
+
+
+def _int(name, low):
+    import argparse
+
+    def conv(text):
+        try:
+            v = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{name} = {text!r}: must be an integer") from None
+        if v < low:
+            raise argparse.ArgumentTypeError(f"{name} = {v}: must be >= {low}")
+        return v
+    return conv
+
+
+def register(sub) -> None:
+    s = sub.add_parser(
+        "simulate",
+        help="fly a guidance solver tree in a closed-loop Monte Carlo (resumable)",
+        description="Closed-loop landing simulation: a truth model (3-DoF, variable mass, RK4) "
+                    "flown by the solver in DIR re-planning at --rate from navigation estimates, "
+                    "with the errors of --errors. Runs are appended to RUN_DIR/runs.jsonl; the "
+                    "same command resumes an interrupted batch. Writes summary.json and a "
+                    "self-contained report.html.")
+    s.add_argument("dir", help="generated solver tree (or a dry-run tree, see DEVELOPERS.md)")
+    s.add_argument("--runs", type=_int("--runs", 1), required=True, help="number of runs")
+    s.add_argument("--seed", type=_int("--seed", 0), default=1, help="batch seed (default 1)")
+    s.add_argument("--errors", default=None, metavar="FILE",
+                   help="error file (TOML); default: no errors (ideal loop)")
+    s.add_argument("--rate", type=_float("--rate"), default=1.0, metavar="HZ",
+                   help="guidance re-plan rate (default 1 Hz; 0 flies the first plan open loop)")
+    s.add_argument("--out", default="sim-out", metavar="RUN_DIR",
+                   help="run directory (default sim-out)")
+    s.add_argument("--step", type=_float("--step"), default=None, metavar="S",
+                   help="truth RK4 step (default 0.01 s)")
+    s.add_argument("--control-rate", type=_float("--control-rate"), default=None, metavar="HZ",
+                   help="rate of the tracking loop around the plan (default 10 Hz)")
+    s.add_argument("--tracking-bandwidth", type=_float("--tracking-bandwidth"), default=None,
+                   metavar="RAD_S", help="tracking loop bandwidth (default 0.5 rad/s; 0: none)")
+    s.add_argument("--terminal-s", type=_float("--terminal-s"), default=None, metavar="S",
+                   help="stop re-planning below this time to go (default 3 s)")
+    s.add_argument("--descent-altitude", type=_float("--descent-altitude"), default=None,
+                   metavar="M", help="guidance aims at rest this high above the target, then a "
+                   "constant-speed vertical descent to contact (default 4 m; 0: none)")
+    s.add_argument("--descent-speed", type=_float("--descent-speed"), default=None, metavar="MPS",
+                   help="speed of the terminal descent (default 1 m/s)")
+    s.add_argument("--state", default=None, help="nominal start X,Y,Z,VX,VY,VZ,MASS "
+                   "(default: centre of the vehicle's envelope, its largest mass)")
+    s.add_argument("--target", default=None, help="X,Y,Z of the landing target [m]")
+    s.add_argument("--quiet", action="store_true", help="no line per run")
+    s.set_defaults(func=cmd_simulate)
+
+
+def cmd_simulate(args) -> int:
+    from .cli import parse_state, parse_vector3, print_table
+    from .simerrors import ErrorModel, load_errors
+    from .simulate import default_settings, load_guidance_solver, run_batch
+
+    errors = load_errors(args.errors) if args.errors else ErrorModel()
+    solver = load_guidance_solver(args.dir)
+    overrides = dict(rate_hz=args.rate, step_s=args.step, control_rate_hz=args.control_rate,
+                     tracking_bandwidth_rad_s=args.tracking_bandwidth, terminal_s=args.terminal_s,
+                     descent_altitude_m=args.descent_altitude, descent_speed_mps=args.descent_speed)
+    if args.state:
+        pos, vel, mass = parse_state(args.state)
+        overrides.update(position_m=tuple(pos), velocity_mps=tuple(vel), mass_kg=mass)
+    if args.target:
+        overrides["target_m"] = tuple(parse_vector3("--target", args.target))
+    settings = default_settings(solver.vehicle, **overrides)
+
+    def progress(kind, info):
+        if kind == "start":
+            print(f"pdgc: simulate: {info['runs']} runs, {info['done']} already in {args.out}, "
+                  f"{info['todo']} to fly", file=sys.stderr, flush=True)
+        elif not args.quiet:
+            r = info
+            if r["status"] == "landed":
+                print(f"run {r['run']:5d}: miss {r['position_error_m']:.3f} m, velocity error "
+                      f"{r['velocity_error_mps']:.3f} m/s, fuel {r['fuel_kg']:.2f} kg, "
+                      f"solves {r['solves']} ({r['failures']} failed), "
+                      f"worst solve {r['worst_solve_time_s'] * 1e3:.2f} ms", file=sys.stderr, flush=True)
+            else:
+                print(f"run {r['run']:5d}: {r['status']}", file=sys.stderr, flush=True)
+
+    summary = run_batch(args.dir, args.runs, args.seed, errors, settings, args.out,
+                        progress=progress, solver=solver)
+
+    def stat(d, unit, digits=4):
+        if not d["n"]:
+            return "-"
+        return (f"mean {d['mean']:.{digits}g}, 3-sigma {d['three_sigma']:.{digits}g}, "
+                f"worst {d['worst']:.{digits}g} {unit}")
+
+    rows = [
+        ("runs / landed", f"{summary['runs']} / {summary['landed']}"),
+        ("touchdown position error", stat(summary["position_error_m"], "m")),
+        ("touchdown velocity error", stat(summary["velocity_error_mps"], "m/s")),
+        ("fuel", stat(summary["fuel_kg"], "kg")),
+        ("solves / failures", f"{summary['solves']} / {summary['solve_failures']} "
+                              f"({summary['runs_with_failures']} runs with a failure)"),
+        ("worst solve time", f"{(summary['worst_solve_time_s'] or 0) * 1e3:.3f} ms (re-plans: "
+                             f"{(summary['worst_replan_time_s'] or 0) * 1e3:.3f} ms)"),
+        ("report", f"{args.out}/report.html"),
+    ]
+    print_table(rows)
+    return 0
