@@ -21,10 +21,19 @@ $(STAMP): pyproject.toml
 	$(PY) -m pip install --quiet -e '.[test]'
 	touch $(STAMP)
 
+# The committed demo tree is regenerated in place: with deterministic output
+# git sees no change unless the generator or the vehicle changed.
+DEMO_TREE := generated/demo
+DEMO_HORIZON := 50
+
 demo: $(STAMP)
 	mkdir -p $(DEMO_OUT)
 	$(PDGC) solve $(DEMO_VEHICLE) --state 1500,0,1500,-50,0,-40,1900 --plot $(DEMO_OUT)/demo_plan.png
 	@echo "demo plot: $(DEMO_OUT)/demo_plan.png"
+	$(PDGC) generate $(DEMO_VEHICLE) --horizon $(DEMO_HORIZON) --out $(DEMO_TREE)
+	$(MAKE) -C $(DEMO_TREE)
+	./$(DEMO_TREE)/build/pdg_example
+	$(PDGC) check $(DEMO_TREE) --cases 50 --json $(DEMO_OUT)/check.json
 
 test: $(STAMP)
 	$(PY) -m pytest -q
@@ -33,4 +42,4 @@ bench: $(STAMP)
 	$(PY) -m pytest -q bench --benchmark-only -p no:cacheprovider
 
 clean:
-	rm -rf $(DEMO_OUT) build .pytest_cache
+	rm -rf $(DEMO_OUT) build .pytest_cache $(DEMO_TREE)/build $(DEMO_TREE)/build-cmake

@@ -1,0 +1,27 @@
+"""The committed demo tree is what the generator makes today, byte for byte."""
+
+import json
+
+from codegen.backends import DEFAULT_BACKEND
+from codegen.emit import generate, verify_tree
+from conftest import DEMO_VEHICLE, ROOT
+
+DEMO_TREE = ROOT / "generated" / "demo"
+
+
+def test_demo_tree_is_committed_with_default_backend():
+    m = verify_tree(DEMO_TREE)
+    assert m["backend"] == DEFAULT_BACKEND
+    assert (DEMO_TREE / "vehicle.toml").read_bytes() == DEMO_VEHICLE.read_bytes()
+
+
+def test_demo_tree_regenerates_byte_for_byte(tmp_path):
+    m = json.loads((DEMO_TREE / "manifest.json").read_text())
+    out = tmp_path / "demo"
+    generate(DEMO_VEHICLE, m["horizon"], out, backend=m["backend"], prefix=m["prefix"],
+             precision=m["precision"])
+    fresh = json.loads((out / "manifest.json").read_text())
+    assert sorted(fresh["files"]) == sorted(m["files"])
+    for rel in m["files"]:
+        assert (out / rel).read_bytes() == (DEMO_TREE / rel).read_bytes(), rel
+    assert (out / "manifest.json").read_bytes() == (DEMO_TREE / "manifest.json").read_bytes()
