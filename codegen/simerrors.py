@@ -17,7 +17,7 @@ latency, no disturbance. Example (see examples/demo_errors.toml)::
     misalignment_sigma_deg = 0.3      # about each horizontal axis, once per run
     throttle_lag_s = 0.1              # first-order lag of the delivered thrust
     throttle_rate_max_per_s = 0.5     # slew limit, fraction of thrust_max_n per s
-    clamp_to_throttle_range = true    # engine cannot leave [throttle_min, throttle_max]
+    clamp_to_throttle_range = true    # engine held in [throttle_min, 1] (full throttle)
 
     [guidance]
     latency_s = 0.05                  # measurement to new plan in force
@@ -66,7 +66,7 @@ SCHEMA = {
         "misalignment_sigma_deg": ("nonneg", "per-run thrust misalignment about each horizontal axis, 1-sigma"),
         "throttle_lag_s": ("nonneg", "time constant of the first-order lag of the delivered thrust (0: none)"),
         "throttle_rate_max_per_s": ("positive", "largest throttle slew rate, fraction of thrust_max_n per second"),
-        "clamp_to_throttle_range": ("bool", "delivered throttle stays in [throttle_min, throttle_max]"),
+        "clamp_to_throttle_range": ("bool", "engine held in [throttle_min, 1]: full throttle is thrust_max_n; throttle_max is the planning limit"),
     },
     "guidance": {
         "latency_s": ("nonneg", "time from the navigation sample to the new plan taking effect"),

@@ -28,18 +28,21 @@ Command: acceleration, not force
     estimate error then shows as an acceleration error, as it does in flight.
 
 Engine
-    Commanded magnitude clamped to [throttle_min, throttle_max] when the
-    error file says so, then a first-order lag with an optional slew limit
-    (the lag state starts at the first command: the run starts at powered
+    Commanded magnitude clamped to the engine's range when the error file
+    says so: throttle_min to full throttle (thrust_max_n). The vehicle's
+    throttle_max is read as the planning limit below full throttle (a plan
+    that rides the engine's true maximum leaves nothing to correct with);
+    the margin above it is the tracking loop's authority. Then a
+    first-order lag with an optional slew limit (the lag state starts at the first command: the run starts at powered
     descent with the engine settled), then the per-run magnitude error and
     misalignment (a fixed small rotation of the thrust direction about the
     two horizontal axes: a 3-DoF model has no attitude). Mass flow follows
     the delivered thrust. No thrust once the propellant is gone.
 
 Guidance loop
-    Navigation: estimate = truth + per-run bias + white noise per call; the
+    Navigation: estimate = truth + per-run bias + white noise per sample; the
     mass estimate = truth + per-run bias. The first plan searches the time of
-    flight (``time_of_flight_s=None``) and fixes the planned touchdown time
+    flight (``time_of_flight_s=None``) and fixes the end of the guided phase
     t_end. Then every 1/rate seconds guidance re-solves from the estimate
     with the time to go t_end - t (horizon N fixed, so the intervals shrink).
     A new plan takes effect ``latency_s`` after its navigation sample and is
@@ -47,24 +50,43 @@ Guidance loop
     optimal / least_miss) changes nothing: the last good plan is followed.
     The mass handed to the solver is clamped into (dry, wet] (an estimate
     above the wet mass is a known impossibility; flight software would clamp).
-    ``--rate 0`` flies the first plan open loop.
+    ``rate_hz = 0`` flies the first plan open loop.
 
-Terminal phase (rule chosen here)
-    When the time to go falls below ``terminal_s`` (default 3 s), guidance
-    stops re-planning and flies the last good plan to its end. A common
-    practice in guidance design: in the last seconds a re-plan over a
-    vanishing horizon has tiny intervals, its thrust bounds leave no room to
-    correct (the fuel-optimal plan ends on a full-thrust arc), and a new plan
-    cannot change much; freezing avoids chattering between failed and
-    successful solves just before contact. The open-loop errors of the last
-    seconds (thrust, mass estimate) are part of what the statistics show.
+Tracking loop
+    A fuel-optimal plan ends on a full-thrust arc: from a state a little
+    behind it, no plan with the same thrust bound and touchdown time exists,
+    so re-plans there fail and the vehicle would fly the last plan blind.
+    Between re-plans a tracking loop (``control_rate_hz``, default 10 Hz,
+    with its own navigation samples) adds to the plan's acceleration
+    3 w (v_ref - v_est) + 3 w^2 (r_ref - r_est) + w^3 * integral(r_ref - r_est),
+    poles at -w (triple; w = ``tracking_bandwidth_rad_s``, default 0.5 rad/s),
+    the integral clamped (anti-windup) and kept across plans (it estimates
+    persistent errors: thrust magnitude, mass estimate, disturbance). r_ref,
+    v_ref follow the plan's nodes under its own zero-order hold. w = 0 flies
+    the plan's accelerations alone.
+
+Terminal phase (rules chosen here, both common practice)
+    1. When the time to go falls below ``terminal_s`` (default 3 s), guidance
+       stops re-planning and flies (tracks) the last good plan to its end: a
+       re-plan over a vanishing horizon has tiny intervals, its thrust bounds
+       leave no room, and a new plan cannot change much.
+    2. The plans aim at rest ``descent_altitude_m`` (default 4 m) above the
+       target; from there a vertical descent at constant speed
+       ``descent_speed_mps`` (default 1 m/s, reached at 1 m/s^2) under the
+       same tracking loop (vertical channel: speed only) until ground
+       contact, when the engine cuts off. A plan that ends at rest exactly on
+       the ground turns an altitude error d into a touchdown speed of about
+       sqrt(2 a d); the constant-speed descent makes the touchdown speed
+       independent of altitude errors. ``descent_altitude_m = 0``: no
+       descent; the engine cuts off at t_end or at contact, and a vehicle
+       still above the ground falls freely to it.
 
 Touchdown
-    The engine cuts off at the planned touchdown time t_end (or at ground
-    contact, if earlier). Ground contact is the first time the altitude
-    reaches the target's altitude (located within a step by bisection on the
-    RK4 step length). A vehicle still above the ground at cut-off falls
-    freely to it, and its touchdown velocity includes that drop.
+    Ground contact is the first time the altitude reaches the target's
+    altitude (located within a step by bisection on the RK4 step length).
+    Position error: horizontal distance from the target. Velocity error:
+    distance of the touchdown velocity from the intended one (0, 0,
+    -descent_speed_mps), or from rest without a descent.
 
 Reproducibility and resumption
     Run i of a batch with seed s takes all its randomness from
