@@ -29,6 +29,9 @@ from .symbolic import KKTSymbolic, analyse
 
 TEMPLATE_DIR = Path(__file__).resolve().parent.parent.parent / "templates" / "native"
 
+#: Default KKT ordering by precision (see codegen.native.symbolic).
+DEFAULT_ORDERING = {"double": "auto", "single": "staged"}
+
 #: Compile-time cap on the iteration limit (the setting is clamped to it).
 MAX_ITER_CAP = 200
 
@@ -36,17 +39,18 @@ MAX_ITER_CAP = 200
 #: conic solvers (1e-8 relative; common practice). Single: float has about
 #: 7 significant digits (unit roundoff 6e-8) and the KKT system's condition
 #: number grows like 1/mu near the optimum, so feasibility, gap and
-#: infeasibility are asked to 1e-4 relative, with stronger regularisation
-#: (1e-5): on the demo problem the float factorisation loses its last digits
-#: at a relative gap of about 1e-5.
+#: infeasibility are asked to 1e-4 relative, with much stronger
+#: regularisation (1e-3, corrected by up to 10 refinement steps) and the
+#: "staged" ordering (see codegen.native.symbolic): on the demo problem the
+#: float factorisation loses its last digits at a relative gap near 1e-5.
 DEFAULTS = {
     "double": {"tol_gap_abs": 1e-8, "tol_gap_rel": 1e-8, "tol_feas": 1e-8, "tol_infeas": 1e-8,
                "max_iter": 100, "static_reg": 1e-8, "dynamic_reg_eps": 1e-13,
                "dynamic_reg_delta": 2e-7, "refine_steps": 5, "refine_tol": 1e-13,
                "step_fraction": 0.99},
     "single": {"tol_gap_abs": 1e-4, "tol_gap_rel": 1e-4, "tol_feas": 1e-4, "tol_infeas": 1e-4,
-               "max_iter": 100, "static_reg": 1e-5, "dynamic_reg_eps": 1e-9,
-               "dynamic_reg_delta": 1e-5, "refine_steps": 5, "refine_tol": 1e-6,
+               "max_iter": 100, "static_reg": 1e-3, "dynamic_reg_eps": 1e-5,
+               "dynamic_reg_delta": 1e-3, "refine_steps": 10, "refine_tol": 1e-6,
                "step_fraction": 0.99},
 }
 
@@ -198,6 +202,11 @@ def _symbolic(prog: ConeProgram, ordering: str) -> KKTSymbolic:
 def _context(prog, prefix, precision, settings, ordering):
     _check_program(prog)
     defaults = _check_args(prefix, precision, settings)
+    if ordering is None:
+        ordering = DEFAULT_ORDERING[precision]
+    if ordering not in ("auto", "staged", "minfill", "mindegree", "rcm", "natural"):
+        raise InputError("ordering", ordering,
+                         "must be one of auto, staged, minfill, mindegree, rcm, natural")
     sym = _symbolic(prog, ordering)
     aff = _affine_layout(prog)
     soc = [int(q) for q in prog.soc]
@@ -207,10 +216,13 @@ def _context(prog, prefix, precision, settings, ordering):
     def alloc(v):
         return max(1, int(v))
 
+    largest = max(sym.dim, sym.nnz_kkt, sym.nnz_L, aff["ndata"], prog.n_params,
+                  len(aff["pcol"]), prog.A.nnz, prog.G.nnz)
+    idx_type = "unsigned short" if largest < 65535 else "int"
     lit = {k: real_literal(v, precision) for k, v in defaults.items()
            if k not in ("max_iter", "refine_steps")}
     ctx = dict(
-        prefix=prefix, PREFIX=prefix.upper(), precision=precision,
+        prefix=prefix, PREFIX=prefix.upper(), precision=precision, idx_type=idx_type,
         single=precision == "single", ctype="float" if precision == "single" else "double",
         n_params=prog.n_params, n=prog.n, p=prog.p, m=prog.m, nonneg=prog.nonneg, nsoc=len(soc),
         dim=sym.dim, nnz_kkt=sym.nnz_kkt, nnz_L=sym.nnz_L, ndata=aff["ndata"],
@@ -245,14 +257,16 @@ def _env() -> jinja2.Environment:
 
 
 def render(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
-           settings: dict | None = None, ordering: str = "auto") -> dict:
+           settings: dict | None = None, ordering: str | None = None) -> dict:
     """C source of the solver for ``prog``: {filename: text}.
 
     ``settings`` overrides the defaults compiled into
     ``{prefix}_socp_settings_default`` (keys as in :data:`DEFAULTS`).
-    ``ordering``: "auto" (smaller nnz(L) of minimum degree and reverse
-    Cuthill-McKee), "mindegree", "rcm" or "natural". Deterministic: the same
-    input gives the same bytes.
+    ``ordering`` (default: by precision, :data:`DEFAULT_ORDERING`): "auto"
+    (smallest nnz(L) of minimum fill, minimum degree and reverse
+    Cuthill-McKee), "staged" (cone rows, then x, then y; default in
+    single precision), "minfill", "mindegree", "rcm" or "natural".
+    Deterministic: the same input gives the same bytes.
     """
     ctx, _, _ = _context(prog, prefix, precision, settings, ordering)
     env = _env()
@@ -261,7 +275,7 @@ def render(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
 
 
 def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
-             settings: dict | None = None, ordering: str = "auto") -> dict:
+             settings: dict | None = None, ordering: str | None = None) -> dict:
     """Sizes and defaults of the solver ``render`` would generate."""
     ctx, sym, defaults = _context(prog, prefix, precision, settings, ordering)
     rb = 4 if precision == "single" else 8

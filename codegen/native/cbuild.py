@@ -73,7 +73,8 @@ class NativeSolver:
         out = {"status": int(status), "objective": float(w.objective),
                "iterations": int(w.iterations), "pres": float(w.pres), "dres": float(w.dres),
                "gap": float(w.gap), "dynamic_reg_count": int(w.dynamic_reg_count),
-               "numerical_cause": int(w.numerical_cause), "work": w}
+               "numerical_cause": int(w.numerical_cause),
+               "refine_count": int(w.refine_count), "work": w}
         if sizes is not None:
             n, p, m = sizes
             out["x"] = self.vec(w, "x", n)
