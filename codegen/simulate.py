@@ -555,7 +555,7 @@ def fly(solver, errors: ErrorModel, settings: Settings, seed: int, index: int,
         return r, v, m
 
     stats = {"solves": 0, "failures": 0, "worst_solve_time_s": 0.0, "worst_replan_time_s": 0.0,
-             "failure_statuses": {}}
+             "failure_statuses": {}, "failure_time_to_go_s": []}
 
     def solve(y, tof):
         r, v, m = estimate(y)
@@ -573,6 +573,8 @@ def fly(solver, errors: ErrorModel, settings: Settings, seed: int, index: int,
         if not ok:
             stats["failures"] += 1
             stats["failure_statuses"][status] = stats["failure_statuses"].get(status, 0) + 1
+            if tof is not None:
+                stats["failure_time_to_go_s"].append(round(float(tof), 4))
             return None
         return traj
 
@@ -911,7 +913,7 @@ def _figures(records, vehicle: Vehicle, target_m) -> list:
     tx, ty = target_m[0], target_m[1]
     figs = []
 
-    fig, ax = plt.subplots(1, 2, figsize=(13, 5))
+    fig, ax = plt.subplots(1, 3, figsize=(16, 5))
     tan_gs = math.tan(math.radians(vehicle.glide_slope_deg))
     span = 1.0
     for r in landed:
@@ -920,6 +922,7 @@ def _figures(records, vehicle: Vehicle, target_m) -> list:
         span = max(span, float(horiz.max()))
         ax[0].plot(horiz, p[:, 2] - target_m[2], lw=0.6, alpha=0.4, color="tab:blue")
         ax[1].plot(p[:, 0] - tx, p[:, 1] - ty, lw=0.6, alpha=0.4, color="tab:blue")
+        ax[2].plot(horiz, p[:, 2] - target_m[2], lw=0.6, alpha=0.4, color="tab:blue")
     hs = np.linspace(0.0, span * 1.05, 50)
     ax[0].fill_between(hs, 0.0, hs * tan_gs, color="tab:red", alpha=0.2, label="outside glide slope")
     ax[0].set_xlabel("horizontal distance to target [m]")
@@ -931,6 +934,11 @@ def _figures(records, vehicle: Vehicle, target_m) -> list:
     ax[1].set_ylabel("y [m]")
     ax[1].set_title("ground track")
     ax[1].legend()
+    ax[2].set_xlim(0.0, 30.0)
+    ax[2].set_ylim(-0.5, 30.0)
+    ax[2].set_xlabel("horizontal distance to target [m]")
+    ax[2].set_ylabel("altitude above target [m]")
+    ax[2].set_title("last 30 m (history sampled every 0.5 s)")
     figs.append(("Trajectory fan", figure_png_base64(fig)))
 
     fig, ax = plt.subplots(1, 2, figsize=(13, 5))
@@ -954,13 +962,23 @@ def _figures(records, vehicle: Vehicle, target_m) -> list:
     for r in landed:
         h = r["history"]
         ax.plot(h["t_s"], h["throttle"], lw=0.6, alpha=0.4, color="tab:blue")
-    ax.axhline(vehicle.throttle_min, color="k", ls="--", label="throttle range")
-    ax.axhline(vehicle.throttle_max, color="k", ls="--")
+    ax.axhline(vehicle.throttle_min, color="k", ls="--", label="throttle_min")
+    ax.axhline(vehicle.throttle_max, color="tab:red", ls=":", label="throttle_max (planning limit)")
     ax.set_xlabel("time [s]")
     ax.set_ylabel("delivered throttle")
     ax.set_title("throttle histories (sampled every history step; the engine cuts off at touchdown)")
     ax.legend()
     figs.append(("Throttle histories", figure_png_base64(fig)))
+
+    fig, ax = plt.subplots(figsize=(13, 4))
+    tgo = [x for r in records for x in r.get("failure_time_to_go_s", [])]
+    if tgo:
+        ax.hist(tgo, bins=40, color="tab:red", alpha=0.7)
+    ax.set_xlabel("time to go at the failed re-plan [s]")
+    ax.set_ylabel("failed re-plans")
+    ax.set_title(f"re-plan failures by time to go ({len(tgo)} in all runs; the last good plan "
+                 "was followed each time)")
+    figs.append(("Re-plan failures", figure_png_base64(fig)))
     return figs
 
 

@@ -315,7 +315,7 @@ def test_resume_refuses_other_settings(demo_batch, dry_tree, solver):
 def test_report_is_self_contained(demo_batch):
     _, _, out, summary = demo_batch
     html = (out / "report.html").read_text()
-    assert html.count('src="data:image/png;base64,') == 3
+    assert html.count('src="data:image/png;base64,') == 4
     assert "http://" not in html and "https://" not in html
     assert json.loads((out / "summary.json").read_text())["runs"] == 3 == summary["runs"]
 
