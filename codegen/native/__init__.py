@@ -245,7 +245,6 @@ def _context(prog, prefix, precision, settings, ordering):
         pos_xdiag=_ints(sym.pos_xdiag), pos_ydiag=_ints(sym.pos_ydiag),
         pos_zdiag=_ints(sym.pos_zdiag), pos_A=_ints(sym.pos_A), pos_G=_ints(sym.pos_G),
         pos_zoff=_ints(sym.pos_zoff), l_ptr=_ints(sym.Lp), l_row=_ints(sym.Li),
-        r_ptr=_ints(sym.Rp), r_col=_ints(sym.Rj),
     )
     return ctx, sym, defaults
 
@@ -287,7 +286,7 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
              + 5 * dim                                   # rhs, u0, u1, res, corr
              + n + p + m + n + p + 5 * m + 2             # residuals, directions, scratch
              + 6)                                        # objective, pres, dres, gap, mu
-    ints = dim + 3
+    ints = 2 * dim + 1 + a["nnz_L"] + 6
     return {
         "precision": precision, "prefix": prefix,
         "n_params": prog.n_params, "n": prog.n, "p": prog.p, "m": prog.m,
@@ -295,7 +294,7 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
         "soc_sizes": sorted(set(int(q) for q in prog.soc)),
         "kkt_dim": dim, "kkt_nnz": sym.nnz_kkt, "L_nnz": sym.nnz_L,
         "ordering": sym.ordering, "L_nnz_by_ordering": dict(sym.nnz_L_tried),
-        "workspace_bytes": reals * rb + ints * 4,
+        "workspace_bytes": int(reals * rb + ints * 4),
         "max_iter_cap": MAX_ITER_CAP,
         "settings": dict(defaults),
     }
