@@ -992,7 +992,10 @@ def write_report(path, records, summary: dict, vehicle: Vehicle, errors: ErrorMo
              f"with solver <code>{esc(b.get('solver'))}</code> (N = {esc(b.get('horizon'))}), "
              f"seed {esc(b.get('seed'))}, guidance at {esc(settings.rate_hz)} Hz "
              f"({'open loop' if settings.rate_hz == 0 else 're-planned'}), truth RK4 step "
-             f"{esc(settings.step_s)} s, terminal phase below {esc(settings.terminal_s)} s to go. "
+             f"{esc(settings.step_s)} s, tracking loop at {esc(settings.control_rate_hz)} Hz with "
+             f"bandwidth {esc(settings.tracking_bandwidth_rad_s)} rad/s, no re-plans below "
+             f"{esc(settings.terminal_s)} s to go, terminal descent from "
+             f"{esc(settings.descent_altitude_m)} m at {esc(settings.descent_speed_mps)} m/s. "
              f"Errors: <code>{esc(errors.source or 'none (ideal loop)')}</code>.</p>")
     rows = []
     for key, label in (("position_error_m", "touchdown position error (horizontal miss) [m]"),
@@ -1027,9 +1030,13 @@ def write_report(path, records, summary: dict, vehicle: Vehicle, errors: ErrorMo
              "ending on every event. Guidance commands the plan's acceleration times the mass "
              "estimate; it re-plans from the navigation estimate with the time to go, follows "
              "the last good plan when a solve fails, and stops re-planning below the terminal "
-             "time to go (flying the last plan). The engine cuts off at the planned touchdown "
-             "time or at ground contact; a vehicle above the ground then falls freely. "
-             "3-sigma is three sample standard deviations.</p>")
+             "time to go (flying the last plan). A tracking loop (PID on position, poles at "
+             "minus the bandwidth) steers onto the plan between re-plans. The plans aim at rest "
+             "above the target; a constant-speed vertical descent follows until ground contact, "
+             "when the engine cuts off. Position error: horizontal miss; velocity error: "
+             "distance from the intended touchdown velocity. 3-sigma is three sample standard "
+             "deviations. Solve times are wall-clock times measured by the solver and depend "
+             "on the machine and its load.</p>")
     err_rows = [[k, json.dumps(v)] for k, v in errors.as_dict().items() if k not in ("source", "source_sha256")]
     sections = [
         ("statistics", "Touchdown statistics", stats + counts),
