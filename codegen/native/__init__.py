@@ -46,7 +46,7 @@ MAX_ITER_CAP = 200
 DEFAULTS = {
     "double": {"tol_gap_abs": 1e-8, "tol_gap_rel": 1e-8, "tol_feas": 1e-8, "tol_infeas": 1e-8,
                "max_iter": 100, "static_reg": 1e-8, "dynamic_reg_eps": 1e-13,
-               "dynamic_reg_delta": 2e-7, "refine_steps": 5, "refine_tol": 1e-13,
+               "dynamic_reg_delta": 2e-7, "refine_steps": 5, "refine_tol": 1e-12,
                "step_fraction": 0.99},
     "single": {"tol_gap_abs": 1e-4, "tol_gap_rel": 1e-4, "tol_feas": 1e-4, "tol_infeas": 1e-4,
                "max_iter": 100, "static_reg": 1e-3, "dynamic_reg_eps": 1e-5,
