@@ -78,8 +78,8 @@ class RandomFamily:
     """A fixed pattern and cone structure whose data are all parameters:
     every stored value of (c, A, b, G, h) is 0.5 * p_k + const_k, d = 0.25.
 
-    Patterns: A has a dense column 0; G has a dense row 0 (a nonneg row) and a
-    dense column 0, so that infeasible and unbounded instances with exact
+    Patterns: A has a dense column 0; G has a dense row 0 (a nonneg row, or
+    the head of the first SOC) and a dense column 0, so that infeasible and unbounded instances with exact
     certificates can be written down (Farkas' lemma)."""
 
     def __init__(self, seed, n, p, nonneg, soc, density=0.35):
@@ -167,7 +167,7 @@ class RandomFamily:
         y0, z0 = self.rng.normal(size=self.p), self._interior()
         Gd = G.toarray()
         r = -(A.T @ y0) - (Gd.T @ z0)
-        Gd[0, :] += r / z0[0]                          # row 0 is dense and nonneg
+        Gd[0, :] += r / z0[0]                          # row 0 is dense, z0[0] > 0
         G = _with_pattern(sp.csc_matrix(Gd), self.g_pat)
         b, h = self.rng.normal(size=self.p), self.rng.normal(size=self.m)
         h[0] += (-1.0 - (b @ y0 + h @ z0)) / z0[0]
@@ -207,6 +207,7 @@ FAMILIES = {
     "soc_mix": dict(seed=2, n=8, p=2, nonneg=4, soc=(1, 2, 3, 4, 5, 6)),
     "soc_noeq": dict(seed=3, n=7, p=0, nonneg=3, soc=(3, 4, 3)),
     "soc_big": dict(seed=4, n=14, p=4, nonneg=6, soc=(3, 3, 4, 4, 6, 5, 2)),
+    "soc_only": dict(seed=5, n=6, p=1, nonneg=0, soc=(4, 3, 5, 2)),
 }
 
 
