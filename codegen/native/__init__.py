@@ -280,13 +280,16 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
     rb = 4 if precision == "single" else 8
     a = ctx["alloc"]
     dim, n, p, m = sym.dim, prog.n, a["p"], a["m"]
-    reals = (ctx["ndata"] + n + p + 2 * m + 2            # data, x, y, z, s, tau, kappa
-             + 2 * m + a["nsoc"]                         # lambda, ntw, eta
-             + sym.nnz_kkt + a["nnz_L"] + 3 * dim        # kkt, lx, dg, dinv, scat
-             + 5 * dim                                   # rhs, u0, u1, res, corr
-             + n + p + m + n + p + 5 * m + 2             # residuals, directions, scratch
-             + 6)                                        # objective, pres, dres, gap, mu
-    ints = 2 * dim + 1 + a["nnz_L"] + 6
+    nsoc = a["nsoc"]
+    # the members of {prefix}_socp_work, as declared in socp.h.j2
+    reals = (ctx["ndata"] + n + p + 2 * m + 2         # data, x, y, z, s, tau, kappa
+             + 2 * m + nsoc                          # lambda, ntw, eta
+             + sym.nnz_kkt + a["nnz_L"] + 3 * dim    # kkt, lx, dg, dinv, scat
+             + 5 * dim                               # rhs, u0, u1, res, corr
+             + 2 * n + 2 * p + 7 * m                 # rx, ry, rz, dx, dy, dz, ds, dsa, dza, t1, t2
+             + 4                                     # dtau, dkappa, data_norm, reg
+             + 5)                                    # objective, pres, dres, gap, mu
+    ints = dim + (dim + 1) + a["nnz_L"] + 5           # lfill, r_ptr, r_col, counters
     return {
         "precision": precision, "prefix": prefix,
         "n_params": prog.n_params, "n": prog.n, "p": prog.p, "m": prog.m,
