@@ -824,9 +824,9 @@ def _check_sections(ck: Checks, prefix: str) -> list:
                 f"Worst stack depth from `{st['entry']}`: **{st['bytes']} B**, the largest sum of "
                 f"frames along any call path of the call graph from -fcallgraph-info=su (no "
                 f"recursion: the graph is acyclic{'' if not st['cycle'] else '; CYCLE FOUND: ' + ', '.join(st['cycle'])}). "
-                f"Deepest path: {path}. Calls into the C library ("
+                f"Deepest path: {path}. Calls into the C and compiler run-time libraries ("
                 f"{', '.join(st['external']) or 'none'}) are counted as 0 B: add the target "
-                f"library's own figures. Frames that are not static: "
+                f"libraries' own figures. Frames that are not static: "
                 f"{', '.join(st['not_static']) or 'none'}."))
         blocks.append(_table(("function", "frame [B]", "kind"), m["frames"]))
         nonstrict = [x["file"] for x in m["log"] if not x["strict"]]
@@ -848,6 +848,10 @@ def _check_sections(ck: Checks, prefix: str) -> list:
     if ck.coverage is not None:
         rows = [(c["file"], c["lines"], c["executed"], f"{c['percent']:.2f} %")
                 for c in ck.coverage["files"]]
+        lines = sum(c["lines"] for c in ck.coverage["files"])
+        done = sum(c["executed"] for c in ck.coverage["files"])
+        if lines:
+            rows.append(("all library sources", lines, done, f"{100.0 * done / lines:.2f} %"))
         b = [_text("Statement (line) coverage of the library sources by the test vectors: "
                    "`make coverage` (gcc -O0 --coverage, `gcov -n`)."),
              _table(("file", "lines", "executed", "coverage"), rows)]
