@@ -54,6 +54,11 @@ DEFAULTS = {
                "step_fraction": 0.99},
 }
 
+#: Refinement of a KKT solve stops once its residual is below this times mu
+#: (inexact Newton directions: the error only has to be small next to the
+#: complementarity it is reducing).
+_REFINE_MU_FACTOR = 1e-6
+
 _PREFIX_RE = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
 
 
@@ -223,6 +228,7 @@ def _context(prog, prefix, precision, settings, ordering):
            if k not in ("max_iter", "refine_steps")}
     ctx = dict(
         prefix=prefix, PREFIX=prefix.upper(), precision=precision, idx_type=idx_type,
+        refine_mu_factor=_REFINE_MU_FACTOR,
         single=precision == "single", ctype="float" if precision == "single" else "double",
         n_params=prog.n_params, n=prog.n, p=prog.p, m=prog.m, nonneg=prog.nonneg, nsoc=len(soc),
         dim=sym.dim, nnz_kkt=sym.nnz_kkt, nnz_L=sym.nnz_L, ndata=aff["ndata"],
@@ -287,7 +293,7 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
              + sym.nnz_kkt + a["nnz_L"] + 3 * dim    # kkt, lx, dg, dinv, scat
              + 5 * dim                               # rhs, u0, u1, res, corr
              + 2 * n + 2 * p + 7 * m                 # rx, ry, rz, dx, dy, dz, ds, dsa, dza, t1, t2
-             + 4                                     # dtau, dkappa, data_norm, reg
+             + 5                                     # dtau, dkappa, data_norm, reg, refine_floor
              + 5)                                    # objective, pres, dres, gap, mu
     ints = dim + (dim + 1) + a["nnz_L"] + 5           # lfill, r_ptr, r_col, counters
     return {
