@@ -632,6 +632,7 @@ class Session:
         self.measurements: dict = {}
         self.rows: dict = {}
         self.callgrind: dict = {}
+        self.failures: dict = {}
         self._instances = None
         self.started = time.time()
         self.load_start = os.getloadavg()
@@ -644,29 +645,49 @@ class Session:
         return self._instances
 
     def build(self, backend: str, horizon: int) -> Build:
+        """Build once; a failure is remembered (and raised again), never retried."""
         key = (backend, horizon)
+        if key in self.failures:
+            raise RuntimeError(f"{backend} N={horizon} failed earlier: {self.failures[key]}")
         if key not in self.builds:
-            self.builds[key] = build(self.cfg, backend, horizon)
+            try:
+                self.builds[key] = build(self.cfg, backend, horizon)
+                self.solvers[key] = load_cffi(self.builds[key])
+            except Exception as exc:
+                self.builds.pop(key, None)
+                self.failures[key] = f"{type(exc).__name__}: {exc}"[:2000]
+                say(f"FAILED {backend} N={horizon}: {self.failures[key][:300]}")
+                raise
         return self.builds[key]
 
     def solver(self, backend: str, horizon: int) -> ArchiveSolver:
-        key = (backend, horizon)
-        if key not in self.solvers:
-            self.solvers[key] = load_cffi(self.build(backend, horizon))
-        return self.solvers[key]
+        self.build(backend, horizon)
+        return self.solvers[(backend, horizon)]
 
     def measure(self, horizon: int) -> list:
+        """Measure a horizon once, with every backend that builds."""
         if horizon not in self.rows:
             insts = self.instances
-            backends = self.cfg.backends_at(horizon)
-            builds = {b: self.build(b, horizon) for b in backends}
-            solvers = {b: self.solver(b, horizon) for b in backends}
+            builds = {}
+            for b in self.cfg.backends_at(horizon):
+                try:
+                    builds[b] = self.build(b, horizon)
+                except Exception:   # noqa: BLE001  (recorded; its own tests fail)
+                    continue
+            if not builds:
+                raise RuntimeError(f"N={horizon}: no backend builds: {self.failures}")
+            solvers = {b: self.solvers[(b, horizon)] for b in builds}
             self.measurements[horizon] = measure_horizon(self.cfg, builds, solvers, insts)
             self.rows[horizon] = summarise(self.cfg, builds, self.measurements[horizon])
         return self.rows[horizon]
 
     def row(self, backend: str, horizon: int) -> dict:
-        return next(r for r in self.measure(horizon) if r["backend"] == backend)
+        rows = self.measure(horizon)
+        for r in rows:
+            if r["backend"] == backend:
+                return r
+        raise RuntimeError(f"{backend} N={horizon}: not measured: "
+                           f"{self.failures.get((backend, horizon), 'not in this run')}")
 
     def run_callgrind(self) -> None:
         cfg = self.cfg
@@ -692,6 +713,7 @@ class Session:
         return {"meta": machine_meta(self), "config": _config_dict(self.cfg),
                 "instances": [asdict(i) for i in (self._instances or [])],
                 "rows": rows, "growth": growth(rows), "callgrind": self.callgrind,
+                "failures": {f"{b} N={n}": msg for (b, n), msg in sorted(self.failures.items())},
                 "notes": notes(self.cfg)}
 
 
@@ -848,6 +870,9 @@ def table_markdown(results: dict) -> str:
                   "| backend | N | instructions |", "|---|---:|---:|"]
         for b, c in results["callgrind"].items():
             lines.append(f"| {LABELS[b]} | {c['horizon']} | {_n(c['instructions'])} |")
+    if results.get("failures"):
+        lines += ["", "## FAILED in this run", ""]
+        lines += [f"- {k}: {v.splitlines()[0][:300]}" for k, v in results["failures"].items()]
     lines += ["", "## Notes", ""] + [f"- {x}" for x in results["notes"]]
     return "\n".join(lines) + "\n"
 
