@@ -430,3 +430,24 @@ def test_record_states_the_figures(built):
         for c in r["checks"]["coverage"]["files"]:
             assert f"| {c['file']} | {c['lines']} | {c['executed']} |" in md
     assert "<script src" not in html and "http" not in html.replace("http-equiv", "")
+
+
+def test_expected_outputs_in_the_c_data_are_the_reference_answers(built, demo_vehicle):
+    """The C data holds the reference's answer exactly (repr round-trips): solve the
+    middle fixed-tof vector again with the reference and compare with what the file says."""
+    from codegen.reference import ReferenceSolver
+    src = (built["pkg"] / "test" / "pdg_vectors.c").read_text()
+    m = re.search(r'"middle-fixed", "middle", "reference",\s*\{ \{ ([^}]+) \},\s*\{ ([^}]+) \},'
+                  r'\s*([^,]+), ([^,]+),.*?PDG_OPTIMAL, ([^,]+), ([^,]+), ([^,]+),', src, re.S)
+    assert m, "middle-fixed vector not found"
+    pos = [float(x) for x in m.group(1).split(",")]
+    vel = [float(x) for x in m.group(2).split(",")]
+    mass, tof = float(m.group(3)), float(m.group(4))
+    exp_tof, exp_fuel, exp_obj = (float(m.group(i)) for i in (5, 6, 7))
+    assert exp_tof == tof
+    env = demo_vehicle.envelope
+    assert pos == [(a + b) / 2.0 for a, b in zip(env.position_min_m, env.position_max_m)]
+    r = ReferenceSolver(demo_vehicle, HORIZON).solve(pos, vel, mass, tof, fallback=False)
+    assert r.status == "optimal"
+    assert abs(r.fuel_kg - exp_fuel) <= 1e-12 * exp_fuel
+    assert abs(r.objective - exp_obj) <= 1e-12 * abs(exp_obj)
