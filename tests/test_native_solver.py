@@ -373,9 +373,9 @@ def test_single_precision_meets_its_tolerance_on_demo(demo_vehicle, tmp_path_fac
     """Stated single-precision tolerances (codegen.native.DEFAULTS['single']):
     1e-4 relative on residuals and gap; checked here as objective error
     <= 1e-4 against Clarabel and the solver's own residuals <= 1e-4."""
-    dp = DescentProblem(demo_vehicle, 20)
+    dp = DescentProblem(demo_vehicle, 50)        # the demo tree's horizon (Makefile)
     prog = extract(dp)
-    solver = build(prog, tmp_path_factory, "descent20_single", precision="single")
+    solver = build(prog, tmp_path_factory, "descent50_single", precision="single")
     assert solver.real == "float"
     tol = DEFAULTS["single"]["tol_gap_rel"]
     for state in (([1500, 0, 1500], [-50, 0, -40], 1900, 40.0),
