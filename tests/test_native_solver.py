@@ -430,3 +430,47 @@ def test_bad_arguments_are_refused(demo_vehicle):
         render(prog, settings={"max_iter": 10 ** 6})
     with pytest.raises(InputError, match="settings.bogus"):
         render(prog, settings={"bogus": 1})
+
+
+def test_non_finite_or_missing_parameters_are_not_solved(descent20):
+    dp, prog, solver = descent20
+    params = flat_parameters(dp, dp.values([1500, 0, 1500], [-50, 0, -40], 1900, 40.0))
+    bad = params.copy()
+    bad[0] = np.nan
+    res = solver.solve(bad)
+    assert res["status"] == NUMERICAL
+    w = solver.new_work()
+    status = getattr(solver.lib, "pdg_socp_solve")(w, solver.ffi.NULL, solver.ffi.NULL)
+    assert status == NUMERICAL and w.numerical_cause == 5
+
+
+def test_constant_program_without_parameters_compiles_strictly(tmp_path_factory):
+    """A cone program with no parameters at all (n_params = 0) still renders,
+    compiles under the strict flags and agrees with Clarabel."""
+    fam = RandomFamily(seed=9, n=5, p=1, nonneg=4, soc=(3,))
+    params = fam.feasible()
+    data = fam.prog.evaluate(params)
+    n = fam.n
+    c = AffineSparse(shape=(n, 1), indptr=np.array([0, n]), indices=np.arange(n),
+                     map=sp.csr_matrix(data["c"].reshape(-1, 1)))
+
+    def const_mat(M):
+        M = sp.csc_matrix(M)
+        M.sort_indices()
+        return AffineSparse(shape=M.shape, indptr=M.indptr.astype(np.int64),
+                            indices=M.indices.astype(np.int64),
+                            map=sp.csr_matrix(M.data.reshape(-1, 1)))
+
+    def const_vec(v):
+        return AffineSparse(shape=(len(v), 1), indptr=np.array([0, len(v)]),
+                            indices=np.arange(len(v)), map=sp.csr_matrix(v.reshape(-1, 1)))
+
+    prog = ConeProgram(n_params=0, n=n, c=c, d=const_vec(np.array([data["d"]])),
+                       A=const_mat(data["A"]), b=const_vec(data["b"]), G=const_mat(data["G"]),
+                       h=const_vec(data["h"]), nonneg=fam.nonneg, soc=fam.soc,
+                       variables={"x": (0, (n,))})
+    solver = build(prog, tmp_path_factory, "constant")
+    ref_status, ref_obj = clarabel_solve(data, fam.nonneg, fam.soc)
+    res = solver.solve(np.zeros(0))
+    assert ref_status == "Solved" and res["status"] == SOLVED
+    assert rel_err(res["objective"], ref_obj) <= OBJ_TOL
