@@ -469,6 +469,15 @@ def measure_horizon(cfg: Config, builds: dict, solvers: dict, instances: list) -
         first = time_in_c(builds[b], instances[0], reps=5, warmup=1)
         t = first["median_s"] or 1e-3
         reps[b] = int(min(cfg.max_reps, max(cfg.min_reps, round(cfg.c_budget_s / t))))
+    # The cost of crossing from Python into C, without the solver's noise: a
+    # call refused at input validation (mass 0 kg), timed in C and through cffi.
+    refused = Instance("refused", NOMINAL[0], NOMINAL[1], 0.0, cfg.time_of_flight_s)
+    overhead = {}
+    for b in order:
+        c = time_in_c(builds[b], refused, reps=2000, warmup=50)
+        calls = [solvers[b].solve(*refused.args()).solve_time_s for _ in range(2050)][50:]
+        overhead[b] = {"c_median_s": c["median_s"], "cffi_median_s": statistics.median(calls),
+                       "status_c": c["status"]}
     reference_fixed(ref, instances[0])    # warm-up: CVXPY's first solve compiles the problem
     for i, inst in enumerate(instances):
         rot = order[i % len(order):] + order[:i % len(order)]
@@ -508,7 +517,8 @@ def measure_horizon(cfg: Config, builds: dict, solvers: dict, instances: list) -
         ref_search = {"status": tr.status, "objective": tr.objective, "wall_s": tr.solve_time_s,
                       "solves": tr.solves, "time_of_flight_s": tr.time_of_flight_s}
         say(f"N={n}: reference search {tr.solve_time_s:.2f} s ({tr.solves} solves)")
-    return {"horizon": n, "reps": reps, "raw": raw, "search": search, "reference_search": ref_search}
+    return {"horizon": n, "reps": reps, "raw": raw, "search": search, "reference_search": ref_search,
+            "overhead": overhead}
 
 
 def summarise(cfg: Config, builds: dict, meas: dict) -> list:
@@ -532,6 +542,11 @@ def summarise(cfg: Config, builds: dict, meas: dict) -> list:
             "p99_s": _max([r["c"]["p99_s"] for r in recs]),
             "cffi_call_median_s": _median([r["cffi_call_median_s"] for r in recs]),
             "py_solve_median_s": _median([r["py_solve_median_s"] for r in recs]),
+            "call_overhead_s": (meas["overhead"][b]["cffi_median_s"]
+                                - meas["overhead"][b]["c_median_s"]),
+            "refused_call_c_s": meas["overhead"][b]["c_median_s"],
+            "refused_call_cffi_s": meas["overhead"][b]["cffi_median_s"],
+            "refused_status": meas["overhead"][b]["status_c"],
             "iterations_median": _median([r["c"]["iterations"] for r in recs]),
             "iterations_max": _max([r["c"]["iterations"] for r in recs]),
             "rel_objective_error_max": _max(errs),
@@ -710,11 +725,20 @@ class Session:
 
     def results(self) -> dict:
         rows = [r for n in sorted(self.rows) for r in self.rows[n]]
+        extra = []
+        qoco = sorted(n for (b, n) in self.builds if b == "cvxpygen-qoco")
+        if qoco:
+            q = self.builds[("cvxpygen-qoco", qoco[-1])]
+            extra.append(f"This run: QOCOGEN at N={q.horizon} took {q.generation_s:.0f} s to "
+                         f"generate and {q.compile_s:.0f} s to compile (native at the same N: "
+                         + (f"{self.builds[('native', q.horizon)].generation_s:.1f} s + "
+                            f"{self.builds[('native', q.horizon)].compile_s:.1f} s)."
+                            if ("native", q.horizon) in self.builds else "not built)."))
         return {"meta": machine_meta(self), "config": _config_dict(self.cfg),
                 "instances": [asdict(i) for i in (self._instances or [])],
                 "rows": rows, "growth": growth(rows), "callgrind": self.callgrind,
                 "failures": {f"{b} N={n}": msg for (b, n), msg in sorted(self.failures.items())},
-                "notes": notes(self.cfg)}
+                "notes": notes(self.cfg) + extra}
 
 
 def _config_dict(cfg: Config) -> dict:
@@ -767,7 +791,9 @@ def notes(cfg: Config) -> list:
         "C times are measured inside C by a bench-only harness around <prefix>_plan_descent "
         "(clock_gettime(CLOCK_MONOTONIC)); that call includes the guidance layer (parameters from "
         "the state, one solve, SI conversion). 'cffi call' is the same call from Python; "
-        "'Python solve()' adds codegen.bind's input and output handling.",
+        "'Python solve()' adds codegen.bind's input and output handling. The overhead in "
+        "parentheses is that of the call alone: a call refused at input validation (mass 0 kg) "
+        "through cffi minus the same in C (medians of 2000).",
         "Reference: ReferenceSolver.solve (CVXPY parameter update + Clarabel at tight "
         "tolerances, 1e-9); 'Clarabel core' is Clarabel's own solve time.",
         "Relative objective error: |objective - reference| / |reference| at the same instance, "
@@ -825,13 +851,13 @@ def table_markdown(results: dict) -> str:
              f"Horizons {', '.join(map(str, cfg['horizons']))}; {len(results['instances'])} "
              f"instances; fixed time of flight {cfg['time_of_flight_s']:g} s.", "",
              "## Solve time and accuracy (fixed time of flight)", "",
-             "| N | backend | median | worst (p99) | x native | cffi call | Python solve() | "
+             "| N | backend | median | worst (p99) | x native | cffi call (overhead) | Python solve() | "
              "iterations med/max | rel. objective error | optimal | search median (solves) | "
              "search x native |",
              "|---:|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|"]
     for r in rows:
-        cffi = _t(r.get("cffi_call_median_s")) if r["backend"] != REFERENCE \
-            else f"core {_t(r.get('core_median_s'))}"
+        cffi = (f"{_t(r.get('cffi_call_median_s'))} (+{_t(r.get('call_overhead_s'))})"
+                if r["backend"] != REFERENCE else f"core {_t(r.get('core_median_s'))}")
         lines.append(
             f"| {r['horizon']} | {r['label']} | {_t(r['median_s'])} | {_t(r['worst_s'])}"
             + (f" ({_t(r['p99_s'])})" if r.get("p99_s") else "") + " | "

@@ -49,6 +49,8 @@ def test_rows_cover_backends_and_reference(smoke):
         assert r["rel_objective_error_max"] < 1e-6
         assert 0 < r["median_s"] <= r["p99_s"] <= r["worst_s"]
         assert r["iterations_median"] >= 1
+        # The call-overhead probe must really be refused before any solve.
+        assert r["refused_status"] == "bad_input" and math.isfinite(r["call_overhead_s"])
         assert r["search_solves_median"] > 1
         assert r["source_bytes"] == r["source_bytes_solver"] + r["source_bytes_guidance"]
         assert r["text_bytes"] > 0 and r["workspace_bytes"] > 0
