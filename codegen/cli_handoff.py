@@ -20,6 +20,9 @@ def register(subparsers) -> None:
                    help="envelope campaign run on this tree, summarised in the record")
     s.add_argument("--out", default=None, metavar="PKG",
                    help="package directory (default: <DIR name>-handoff); PKG.tar.gz beside it")
+    s.add_argument("--check-cases", type=int, default=50, metavar="K",
+                   help="cases of `pdgc check` (generated against reference) summarised in the "
+                        "record (default 50; 0: none)")
     s.add_argument("--no-checks", action="store_true",
                    help="skip the target checks (the record then says so)")
     s.set_defaults(func=cmd_handoff)
@@ -32,7 +35,8 @@ def cmd_handoff(args) -> int:
         print(f"pdgc handoff: {msg}", file=sys.stderr)
 
     out = args.out or f"{Path(args.dir).resolve().name}-handoff"
-    r = handoff(args.dir, out, campaign=args.campaign, checks=not args.no_checks, progress=say)
+    r = handoff(args.dir, out, campaign=args.campaign, checks=not args.no_checks, progress=say,
+                check_cases=args.check_cases)
     print(f"wrote {r['package_dir']}/ and {r['tarball']}: {r['vectors']} test vectors")
     if r["checks"] is not None:
         c = r["checks"]
@@ -40,6 +44,10 @@ def cmd_handoff(args) -> int:
             res = c.get(key)
             if res is not None:
                 print(f"  test vectors, {label}: {res.get('passed_count')}/{res.get('vectors')} pass")
+        sc = r.get("solver_check")
+        if sc is not None:
+            print(f"  pdgc check: {sc['status_agreement']}/{sc['cases']} statuses agree, "
+                  f"{sc['failures']} failing cases")
         for what, why in c["not_run"]:
             print(f"  NOT RUN: {what}: {why}")
         print("all checks passed" if r["all_checks_passed"] else

@@ -572,6 +572,65 @@ def _parse_gcov(out: str) -> list:
     return rows
 
 
+# -- `pdgc check` on the tree ----------------------------------------------------------
+
+def run_solver_check(tree_dir, cases: int, seed: int, say) -> dict:
+    """`pdgc check`'s comparison (generated solver through cffi against the reference)
+    on ``cases`` dispersed cases; timings are left out (they belong to the machine)."""
+    from .bind import load_solver
+    from .check import TOLERANCES, compare, draw_cases, summarise
+    from .problem import Scaling
+    from .reference import ReferenceSolver
+    say(f"pdgc check: {cases} cases, seed {seed}")
+    gen = load_solver(tree_dir)
+    vehicle = gen.vehicle
+    ref = ReferenceSolver(vehicle, gen.horizon)
+    tol = dict(TOLERANCES[gen.manifest.get("precision", "double")])
+    length = Scaling.for_vehicle(vehicle).length_m
+    results = [compare(gen, ref, c, tol, vehicle, length)
+               for c in draw_cases(vehicle, cases, seed, 5)]
+    s = summarise(results, tol)
+    keep = ("cases", "status_agreement", "status_pairs", "worst_objective_rel", "worst_fuel_rel",
+            "worst_position_m", "worst_thrust_n", "iterations_median", "iterations_worst",
+            "failures", "tolerances")
+    out = {k: s[k] for k in keep}
+    out["seed"] = seed
+    out["length_m"] = length
+    out["thrust_upper_n"] = vehicle.thrust_upper_n
+    out["failed_cases"] = [{"index": r.case.index, "kind": r.case.kind, "why": r.failures}
+                           for r in results if r.failures][:20]
+    return out
+
+
+def _solver_check_blocks(c: dict) -> list:
+    tol = c["tolerances"]
+    rows = [("cases (seed)", f"{c['cases']} ({c['seed']}); every 5th searches the time of flight"),
+            ("status agreement", f"{c['status_agreement']} of {c['cases']}"),
+            ("status pairs (generated/reference)",
+             ", ".join(f"{k}: {v}" for k, v in c["status_pairs"].items())),
+            ("worst relative objective error (same tof)",
+             f"{_g(c['worst_objective_rel'])} (tolerance {_g(tol['objective_rel'])})"),
+            ("worst relative fuel error", f"{_g(c['worst_fuel_rel'])} (searched: tolerance "
+                                           f"{_g(tol['fuel_rel_search'])})"),
+            ("worst position difference [m]",
+             f"{_g(c['worst_position_m'])} (tolerance {_g(tol['position_rel'] * c['length_m'])})"),
+            ("worst thrust difference [N]",
+             f"{_g(c['worst_thrust_n'])} (tolerance {_g(tol['thrust_rel'] * c['thrust_upper_n'])})"),
+            ("iterations per solve (median / worst)",
+             f"{_g(c['iterations_median'])} / {c['iterations_worst']}"),
+            ("failing cases", c["failures"])]
+    blocks = [_text("`pdgc check` on the tree: the generated solver (compiled on the host "
+                    "through cffi) against the reference on dispersed states drawn from the "
+                    "envelope (70 % inside, 20 % on its faces, 10 % beyond), fixed times of "
+                    "flight over the lower part of the bracket, the reference without its "
+                    "two-stage fallback."),
+              _table(("item", "value"), rows)]
+    if c["failed_cases"]:
+        blocks.append(_code("\n".join(f"case {f['index']} ({f['kind']}): {'; '.join(f['why'])}"
+                                      for f in c["failed_cases"])))
+    return blocks
+
+
 # -- the verification record -------------------------------------------------------
 
 def _text(t):
@@ -599,7 +658,7 @@ def _yes(ok):
 
 
 def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, campaign,
-                    files: dict) -> list:
+                    files: dict, solver_check: dict | None = None) -> list:
     prefix, n = manifest["prefix"], manifest["horizon"]
     sec = []
 
@@ -684,6 +743,9 @@ def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, camp
     else:
         sec += _check_sections(checks, prefix)
 
+    if solver_check is not None:
+        sec.append({"title": "Generated solver against the reference",
+                    "blocks": _solver_check_blocks(solver_check)})
     if campaign is None:
         sec.append({"title": "Envelope campaign", "blocks": [
             _text("No campaign given (`--campaign RUN_DIR`): none summarised here.")]})
@@ -990,7 +1052,8 @@ def _write_package(out_dir: Path, files: dict) -> Path:
     return tarball
 
 
-def handoff(tree_dir, out_dir, campaign=None, checks: bool = True, progress=None) -> dict:
+def handoff(tree_dir, out_dir, campaign=None, checks: bool = True, progress=None,
+            check_cases: int = 50, check_seed: int = 1) -> dict:
     """Write the package; returns a summary dict (paths, vector count, check results)."""
     from .vectors import build_vectors, tolerances
     from .vehicle import load_vehicle
@@ -1009,7 +1072,12 @@ def handoff(tree_dir, out_dir, campaign=None, checks: bool = True, progress=None
     vectors = build_vectors(vehicle, manifest["horizon"], progress=say)
     tol = tolerances(manifest["precision"], vehicle,
                      manifest.get("options", {}).get("tof_tolerance_s", 0.05))
+    if isinstance(check_cases, bool) or not isinstance(check_cases, int) or check_cases < 0:
+        raise InputError("--check-cases", check_cases, "must be an integer >= 0 (0: no check)")
     files = package_files(tree_dir, manifest, vehicle, vectors, tol)
+    solver_check = None
+    if checks and check_cases > 0:
+        solver_check = run_solver_check(tree_dir, check_cases, check_seed, say)
     ck = None
     if checks:
         ck = run_checks(files, manifest, tree_dir, len(vectors), say)
@@ -1021,14 +1089,18 @@ def handoff(tree_dir, out_dir, campaign=None, checks: bool = True, progress=None
              "Every figure below was produced by the checks named with it; nothing here "
              "needs Python to read or to reproduce (see README.md for the make targets). "
              "Read the Caution first."]
-    sections = record_sections(manifest, vehicle, vectors, tol, ck, summary, files)
+    sections = record_sections(manifest, vehicle, vectors, tol, ck, summary, files,
+                               solver_check)
     md, html = render_record(sections, title, intro)
     result = {
         "format": RECORD_FORMAT, "pdgc_version": __version__, "vehicle": vehicle.name,
         "horizon": manifest["horizon"], "precision": manifest["precision"],
         "prefix": manifest["prefix"], "vectors": len(vectors), "tolerances": tol,
         "checks_run": checks,
-        "all_checks_passed": ck.all_passed if ck is not None else None,
+        "all_checks_passed": (ck.all_passed and (solver_check is None or
+                                                 solver_check["failures"] == 0))
+        if ck is not None else None,
+        "solver_check": _clean(solver_check),
         "checks": _checks_json(ck) if ck is not None else None,
         "campaign": None if summary is None else {
             "cases_done": summary.get("cases_done"), "seed": summary.get("seed"),
@@ -1054,16 +1126,19 @@ def _json_default(x):
     raise TypeError(f"{type(x)} is not JSON serialisable")
 
 
+def _clean(d):
+    """JSON-safe copy: non-finite floats become null."""
+    if isinstance(d, dict):
+        return {k: _clean(v) for k, v in d.items()}
+    if isinstance(d, (list, tuple)):
+        return [_clean(v) for v in d]
+    if isinstance(d, float) and not math.isfinite(d):
+        return None
+    return d
+
+
 def _checks_json(ck: Checks) -> dict:
-    def clean(d):
-        if isinstance(d, dict):
-            return {k: clean(v) for k, v in d.items()}
-        if isinstance(d, (list, tuple)):
-            return [clean(v) for v in d]
-        if isinstance(d, float) and not math.isfinite(d):
-            return None
-        return d
-    return clean({
+    return _clean({
         "tools": ck.tools,
         "strict": [{"file": f, "passes": p} for f, p, _ in ck.strict],
         "cppcheck_findings": ck.cppcheck["findings"] if ck.cppcheck else None,

@@ -60,7 +60,7 @@ def built(tmp_path_factory):
                      "demo_dispersions.toml"), "--cases", "4", "--workers", "1",
                      "--reference-every", "2", "--out", str(run), "--no-progress"]) == 0
     pkg = base / "out" / "demo10-pkg"
-    result = H.handoff(tree, pkg, campaign=run)
+    result = H.handoff(tree, pkg, campaign=run, check_cases=10)
     return {"base": base, "tree": tree, "run": run, "pkg": pkg, "result": result,
             "tarball": Path(result["tarball"])}
 
@@ -368,6 +368,16 @@ def test_coverage_of_the_solver_by_the_vectors(built):
     assert {"src/pdg_guidance.c", "src/pdg_backend.c", "solver/pdg_socp.c"} <= set(files)
     for c in files.values():
         assert 0 < c["executed"] <= c["lines"]
+
+
+def test_solver_check_is_in_the_record_and_passes(built):
+    sc = built["result"]["solver_check"]
+    assert sc["cases"] == 10 and sc["seed"] == 1
+    assert sc["failures"] == 0, sc["failed_cases"]
+    assert sc["status_agreement"] == sc["cases"]
+    md = (built["pkg"] / "record" / "verification.md").read_text()
+    assert "## Generated solver against the reference" in md
+    assert f"| status agreement | {sc['status_agreement']} of {sc['cases']} |" in md
 
 
 def test_all_checks_pass_and_the_runs_agree(built):
