@@ -296,8 +296,9 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
              + 5 * dim                               # rhs, u0, u1, res, corr
              + 2 * n + 2 * p + 7 * m                 # rx, ry, rz, dx, dy, dz, ds, dsa, dza, t1, t2
              + 5                                     # dtau, dkappa, data_norm, reg, refine_floor
+             + n + p + 2 * m + 2                     # xb, yb, zb, sb, taub, kappab
              + 5)                                    # objective, pres, dres, gap, mu
-    ints = dim + (dim + 1) + a["nnz_L"] + 5           # lfill, r_ptr, r_col, counters
+    ints = dim + (dim + 1) + a["nnz_L"] + 7           # lfill, r_ptr, r_col, counters
     return {
         "precision": precision, "prefix": prefix,
         "n_params": prog.n_params, "n": prog.n, "p": prog.p, "m": prog.m,
