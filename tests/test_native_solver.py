@@ -221,6 +221,8 @@ def family(request, tmp_path_factory):
 def _check_against_clarabel(fam, solver, params, expect):
     prog = fam.prog
     ref_status, ref_obj = clarabel_solve(prog.evaluate(params), prog.nonneg, prog.soc)
+    if ref_status.startswith("Almost"):   # the reference is unsure itself: no verdict
+        return None
     assert CLARABEL_STATUS.get(ref_status) == expect, (ref_status, expect)   # the generator
     res = solver.solve(params, sizes=(prog.n, prog.p, prog.m))
     assert res["status"] == expect, res
@@ -250,23 +252,37 @@ def _check_against_clarabel(fam, solver, params, expect):
 
 def test_random_feasible_agree_with_clarabel(family):
     fam, solver = family
-    worst = 0
-    for _ in range(6):
-        res = _check_against_clarabel(fam, solver, fam.feasible(), SOLVED)
-        worst = max(worst, res["iterations"])
-    assert worst <= 40
+    results = [_check_against_clarabel(fam, solver, fam.feasible(), SOLVED) for _ in range(10)]
+    compared = [r for r in results if r is not None]
+    assert len(compared) >= 8
+    assert max(r["iterations"] for r in compared) <= 40
 
 
 def test_random_infeasible_give_certificates(family):
     fam, solver = family
-    for _ in range(3):
-        _check_against_clarabel(fam, solver, fam.infeasible(), INFEASIBLE)
+    results = [_check_against_clarabel(fam, solver, fam.infeasible(), INFEASIBLE)
+               for _ in range(10)]
+    assert sum(r is not None for r in results) >= 8
 
 
 def test_random_unbounded_give_certificates(family):
     fam, solver = family
-    for _ in range(3):
-        _check_against_clarabel(fam, solver, fam.unbounded(), UNBOUNDED)
+    results = [_check_against_clarabel(fam, solver, fam.unbounded(), UNBOUNDED)
+               for _ in range(10)]
+    assert sum(r is not None for r in results) >= 8
+
+
+def test_unbounded_breakdowns_are_recovered(tmp_path_factory):
+    """Unbounded instances whose iterations break down (tau -> 0 makes W
+    extreme) before the certificate is accurate: the regularised retry of
+    the iteration must still deliver the certificate."""
+    fam = RandomFamily(seed=103, n=14, p=4, nonneg=6, soc=(3, 3, 4, 4, 6, 5, 2))
+    solver = build(fam.prog, tmp_path_factory, "retry")
+    results = [_check_against_clarabel(fam, solver, fam.unbounded(), UNBOUNDED)
+               for _ in range(40)]
+    compared = [r for r in results if r is not None]
+    assert len(compared) >= 36
+    assert any(r["work"].recoveries > 0 for r in compared)
 
 
 def test_iteration_limit_is_reported(family):
