@@ -943,6 +943,8 @@ def _campaign_blocks(s: dict) -> list:
             ("generated: solves per plan", st(g.get("solves"))),
             ("generated: plan time [ms] (campaign machine)", st(g.get("solve_time_s"), 1e3)),
             ("reference solves", s.get("reference", {}).get("cases")),
+            ("reference: statuses", ", ".join(f"{k} {v}" for k, v in
+                                              s.get("reference", {}).get("status_counts", {}).items())),
             ("status agreement with the reference",
              f"{a.get('status_matches')} of {a.get('compared')}"),
             ("|relative fuel difference|", st(a.get("fuel_rel_diff_abs")))]
@@ -951,7 +953,11 @@ def _campaign_blocks(s: dict) -> list:
         if w:
             rows.append((key.replace("_", " "), f"{_g(w['value'])} (case {w['case']})"))
     return [_text("Summary of the envelope campaign (`pdgc envelope`) run on this tree "
-                  "(its summary.json; the run's manifest names this tree's manifest hash)."),
+                  "(its summary.json; the run's manifest names this tree's manifest hash). "
+                  "In a campaign the reference uses its two-stage fallback: where the target "
+                  "is out of reach it answers `least_miss`, which the generated code does not "
+                  "have (it answers `infeasible`), and the status agreement counts those cases "
+                  "as disagreements."),
             _table(("item", "value"), rows)]
 
 
