@@ -123,7 +123,8 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
 
     env_ = vehicle.envelope
     mid = lambda lo, hi: [c_literal((a + b) / 2.0) for a, b in zip(lo, hi)]  # noqa: E731
-    doubles = ctx["nparam"] + 3 * (n + 1) * 2 + (n + 1) + 3 * n + n + 2
+    doubles = (ctx["nparam"] + 3 * (n + 1) * 2 + (n + 1) + 3 * n + n + 2
+               + 4 * ctx["grid_max"])
     ws_bytes = out.backend_bytes + 8 * doubles + 4 * 7
     plan_bytes = 4 + 8 * 4 + 4 * 4 + 8 * ((n + 1) * 8 + n * 7)
     grid_max = ctx["grid_max"]
@@ -134,7 +135,6 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         "print_every": max(1, n // 10),
         "backend_header": out.backend_header, "backend_fields": out.backend_fields,
         "workspace_bytes": ws_bytes, "plan_bytes": plan_bytes,
-        "stack_scratch_bytes": 8 * 4 * grid_max,
         "max_solves": grid_max + 2 + tofsearch.GOLDEN_MAX_STEPS,
         "sizes": {"n": int(prog.n), "p": int(prog.p), "m": int(prog.m), "nonneg": int(prog.nonneg),
                   "soc": len(prog.soc)},
