@@ -86,7 +86,8 @@ def cmd_envelope(args) -> int:
         ("solver", f"{tree['backend']} backend, N = {tree['horizon']}"),
         ("cases", f"{summary['cases_done']} of {summary['cases_planned']} "
                   f"({info['resumed_from']} already recorded, {info['ran']} run now)"),
-        ("engine", f"{info['engine']}, wall time {info['wall_s']:.1f} s"),
+        ("engine", f"{info['engine']}, wall time {info['wall_s']:.1f} s "
+                   f"(all sessions of the run: {sum(x['wall_s'] for x in summary['sessions']):.1f} s)"),
         ("statuses", ", ".join(f"{k} {v}" for k, v in g["status_counts"].items())),
         ("iterations in one solve: worst / p99.9",
          f"{pct(g['iterations_max'], 'worst')} / {pct(g['iterations_max'], 'p99.9')}"),

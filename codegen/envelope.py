@@ -464,6 +464,17 @@ IDENTITY = ("solver_dir", "solver_manifest_sha256", "vehicle_sha256", "seed", "d
             "reference_every", "stand_out_iterations")
 
 
+def code_sha256() -> str:
+    """Hash of the pdgc package's Python sources (the reference and the
+    parameter map live there): a run resumed under other code is flagged."""
+    import hashlib
+    h = hashlib.sha256()
+    pkg = Path(__file__).resolve().parent
+    for f in sorted(pkg.rglob("*.py")):
+        h.update(str(f.relative_to(pkg)).encode() + b"\0" + f.read_bytes() + b"\0")
+    return h.hexdigest()
+
+
 def calibrate_stand_out(solver_dir: str, dispersions: Dispersions, cases: int) -> int:
     """Stand-out threshold from the first few cases (deterministic)."""
     n = min(cases, CALIBRATION_CASES)
@@ -518,6 +529,7 @@ def prepare_run(run_dir, solver_dir, dispersions: Dispersions, dispersions_path,
     man = {
         "format": RUN_FORMAT,
         "pdgc_version": __version__,
+        "code_sha256": code_sha256(),
         "solver_dir": solver_dir,
         "solver_backend": tree["backend"],
         "solver_manifest_sha256": tree["_sha256"],
@@ -540,6 +552,10 @@ def prepare_run(run_dir, solver_dir, dispersions: Dispersions, dispersions_path,
                                  f"differs from the run in {run_dir} "
                                  f"({'its own' if key == 'dispersions' else repr(old.get(key))}); "
                                  "resume with the same command or choose a new --out")
+        if old.get("code_sha256") != man["code_sha256"]:
+            print(f"pdgc: warning: the pdgc sources changed since the run in {run_dir} started; "
+                  "records written before and after may differ (start a new --out for a clean run)",
+                  file=sys.stderr)
         man["created_utc"] = old.get("created_utc")
         man["sessions"] = old.get("sessions", [])
         man["stand_out_calibrated"] = old.get("stand_out_calibrated", False)
@@ -856,6 +872,9 @@ def _figures(records) -> dict:
         axes[1].step(srt, surv, where="post", color="#3b6ea5")
         axes[1].set_xscale("log")
         axes[1].set_yscale("log")
+    for ax in axes:
+        ax.xaxis.set_major_formatter(matplotlib.ticker.FormatStrFormatter("%g"))
+        ax.xaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
     axes[0].set_xlabel("solve time [ms] (whole search)")
     axes[0].set_ylabel("cases")
     axes[1].set_xlabel("solve time [ms]")
