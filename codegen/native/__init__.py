@@ -61,6 +61,11 @@ DEFAULTS = {
 #: complementarity it is reducing).
 _REFINE_MU_FACTOR = 1e-6
 
+#: On a breakdown the static regularisation is multiplied by the first
+#: number, up to the second times the setting (double: 1e-8 -> at most 1e-4;
+#: single: 1e-4 -> at most 1e-1 in tenfold steps, which the sweeps preferred).
+_REG_RAISE = {"double": (100.0, 1e4), "single": (10.0, 1e3)}
+
 _PREFIX_RE = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
 
 
@@ -231,6 +236,7 @@ def _context(prog, prefix, precision, settings, ordering):
     ctx = dict(
         prefix=prefix, PREFIX=prefix.upper(), precision=precision, idx_type=idx_type,
         refine_mu_factor=_REFINE_MU_FACTOR,
+        reg_raise=_REG_RAISE[precision][0], reg_raise_cap=_REG_RAISE[precision][1],
         single=precision == "single", ctype="float" if precision == "single" else "double",
         n_params=prog.n_params, n=prog.n, p=prog.p, m=prog.m, nonneg=prog.nonneg, nsoc=len(soc),
         dim=sym.dim, nnz_kkt=sym.nnz_kkt, nnz_L=sym.nnz_L, ndata=aff["ndata"],
