@@ -147,7 +147,6 @@ class Config:
     reference_reps: int = 3            # reference solves per instance (after one warm-up)
     reference_search: bool = True      # one reference search (nominal) per horizon
     callgrind: bool = True             # instruction counts (valgrind) if available
-    callgrind_horizon: int = 50
     progress: bool = True              # progress lines on the terminal
     vehicle_path: Path = DEMO_VEHICLE
     out_dir: Path = RESULTS_DIR
@@ -176,8 +175,7 @@ class Config:
                    qoco_max_horizon=_env_int("PDGC_BENCH_QOCO_MAX", d.qoco_max_horizon),
                    instances=_env_int("PDGC_BENCH_INSTANCES", d.instances),
                    c_budget_s=_env_float("PDGC_BENCH_C_BUDGET_S", d.c_budget_s),
-                   callgrind=os.environ.get("PDGC_BENCH_CALLGRIND", "1") != "0",
-                   callgrind_horizon=_env_int("PDGC_BENCH_CALLGRIND_N", d.callgrind_horizon))
+                   callgrind=os.environ.get("PDGC_BENCH_CALLGRIND", "1") != "0")
 
     def backends_at(self, horizon: int) -> list:
         return [b for b in self.backends
@@ -316,7 +314,7 @@ def build(cfg: Config, backend: str, horizon: int) -> Build:
     # What the generated header tells its reader the workspace takes (computed
     # in Python at generation time), to set beside the compiler's sizeof.
     header = (tree / "include" / f"{prefix}_guidance.h").read_text()
-    m = re.search(r"Caller-owned workspace \((\d+) bytes", header)
+    m = re.search(r"Caller-owned workspace \((?:about )?(\d+) bytes", header)
     b.sizeof["workspace_bytes_stated"] = int(m.group(1)) if m else None
     say(f"built {backend} N={horizon}: compile {compile_s:.1f} s, text {text} B, "
         f"data+bss {data + bss} B, workspace {b.sizeof['sizeof_workspace']} B")
@@ -611,7 +609,9 @@ def growth(rows: list) -> dict:
         out[b] = {"horizons": ns,
                   "time_exponent": fit_exponent(ns, [r["median_s"] for r in rs]),
                   "source_exponent": (fit_exponent(ns, [r["source_bytes"] for r in rs])
-                                      if b != REFERENCE else math.nan)}
+                                      if b != REFERENCE else math.nan),
+                  "instructions_exponent": fit_exponent(ns, [r.get("instructions") or math.nan
+                                                             for r in rs])}
     return out
 
 
@@ -646,7 +646,6 @@ class Session:
         self.solvers: dict = {}
         self.measurements: dict = {}
         self.rows: dict = {}
-        self.callgrind: dict = {}
         self.failures: dict = {}
         self._instances = None
         self.started = time.time()
@@ -705,17 +704,20 @@ class Session:
                            f"{self.failures.get((backend, horizon), 'not in this run')}")
 
     def run_callgrind(self) -> None:
-        cfg = self.cfg
-        if not cfg.callgrind or shutil.which("valgrind") is None:
+        """Instructions of one call at every measured (backend, N), into the rows."""
+        if not self.cfg.callgrind or shutil.which("valgrind") is None:
             return
-        for b in cfg.backends:
-            n = min(cfg.callgrind_horizon, cfg.qoco_max_horizon) if b == "cvxpygen-qoco" \
-                else cfg.callgrind_horizon
-            if (b, n) not in self.builds:
-                continue
-            say(f"callgrind: {b} N={n}")
-            self.callgrind[b] = {"horizon": n, "instructions": callgrind_ir(self.builds[(b, n)],
-                                                                            self.instances[0])}
+        for n in sorted(self.rows):
+            rows = {r["backend"]: r for r in self.rows[n]}
+            for b in BACKENDS:
+                if b not in rows or "instructions" in rows[b]:
+                    continue
+                say(f"callgrind: {b} N={n}")
+                rows[b]["instructions"] = callgrind_ir(self.builds[(b, n)], self.instances[0])
+            nat = rows.get("native", {}).get("instructions")
+            for r in rows.values():
+                ir = r.get("instructions")
+                r["instructions_ratio_to_native"] = (ir / nat) if ir and nat else math.nan
 
     def run_all(self) -> dict:
         for n in self.cfg.horizons:
@@ -736,7 +738,7 @@ class Session:
                             if ("native", q.horizon) in self.builds else "not built)."))
         return {"meta": machine_meta(self), "config": _config_dict(self.cfg),
                 "instances": [asdict(i) for i in (self._instances or [])],
-                "rows": rows, "growth": growth(rows), "callgrind": self.callgrind,
+                "rows": rows, "growth": growth(rows),
                 "failures": {f"{b} N={n}": msg for (b, n), msg in sorted(self.failures.items())},
                 "notes": notes(self.cfg) + extra}
 
@@ -880,22 +882,27 @@ def table_markdown(results: dict) -> str:
             f"{_bytes(r['workspace_bytes'])} ({_bytes(r.get('workspace_bytes_stated'))}) | "
             f"{r['generation_s']:.1f} s | {r['compile_s']:.1f} s |")
     lines += ["", "## Growth with the horizon (least squares on log-log)", "",
-              "| backend | horizons | solve time ~ N^k, k | source bytes ~ N^k, k |",
-              "|---|---|---:|---:|"]
+              "| backend | horizons | solve time ~ N^k, k | instructions ~ N^k, k | "
+              "source bytes ~ N^k, k |",
+              "|---|---|---:|---:|---:|"]
     for b, g in results["growth"].items():
         lines.append(f"| {LABELS[b]} | {', '.join(map(str, g['horizons']))} | "
-                     f"{_n(g['time_exponent'], '{:.2f}')} | {_n(g['source_exponent'], '{:.2f}')} |")
+                     f"{_n(g['time_exponent'], '{:.2f}')} | "
+                     f"{_n(g.get('instructions_exponent'), '{:.2f}')} | "
+                     f"{_n(g['source_exponent'], '{:.2f}')} |")
     ratios = headline_ratios(results)
     if ratios:
         lines += ["", "## Headline ratios (native time / other time, same run)", ""]
         for line in ratios:
             lines.append(f"- {line}")
-    if results.get("callgrind"):
-        lines += ["", "## Instructions per solve (valgrind callgrind, nominal instance, "
-                  "fixed time of flight; independent of machine load)", "",
-                  "| backend | N | instructions |", "|---|---:|---:|"]
-        for b, c in results["callgrind"].items():
-            lines.append(f"| {LABELS[b]} | {c['horizon']} | {_n(c['instructions'])} |")
+    counted = [r for r in rows if r.get("instructions")]
+    if counted:
+        lines += ["", "## Instructions per call (valgrind callgrind: nominal instance, fixed time "
+                  "of flight, inside <prefix>_plan_descent; independent of the machine's load)", "",
+                  "| N | backend | instructions | x native |", "|---:|---|---:|---:|"]
+        for r in counted:
+            lines.append(f"| {r['horizon']} | {r['label']} | {_n(r['instructions'])} | "
+                         f"{_n(r.get('instructions_ratio_to_native'), '{:.2f}')} |")
     if results.get("failures"):
         lines += ["", "## FAILED in this run", ""]
         lines += [f"- {k}: {v.splitlines()[0][:300]}" for k, v in results["failures"].items()]
@@ -904,6 +911,7 @@ def table_markdown(results: dict) -> str:
 
 
 def headline_ratios(results: dict) -> list:
+    """native/other per horizon, in wall time and (when counted) in instructions."""
     rows = results["rows"]
     by = {(r["backend"], r["horizon"]): r for r in rows}
     out = []
@@ -915,18 +923,30 @@ def headline_ratios(results: dict) -> list:
             o = by.get((b, n))
             if o is None or not (o["median_s"] > 0):
                 continue
-            out.append(f"N={n}: native/{LABELS[b]} = {nat['median_s'] / o['median_s']:.3f} "
-                       f"({LABELS[b]} takes {o['median_s'] / nat['median_s']:.2f}x the native time)")
+            line = (f"N={n}: native/{LABELS[b]} = {nat['median_s'] / o['median_s']:.3f} "
+                    f"({LABELS[b]} takes {o['median_s'] / nat['median_s']:.2f}x the native time)")
+            if o.get("instructions") and nat.get("instructions"):
+                line += (f"; in instructions native/{LABELS[b]} = "
+                         f"{nat['instructions'] / o['instructions']:.3f}")
+            out.append(line)
         q = "cvxpygen-qoco"
         gq = results["growth"].get(q)
-        if (q, n) not in by and gq and gq.get("time_exponent") is not None \
-                and math.isfinite(gq["time_exponent"]):
-            top = max(gq["horizons"])
-            guess = by[(q, top)]["median_s"] * (n / top) ** gq["time_exponent"]
-            out.append(f"N={n}: native/{LABELS[q]} NOT MEASURED (capped at N={top}); extrapolated "
-                       f"from its fit (k={gq['time_exponent']:.2f} over N="
-                       f"{', '.join(map(str, gq['horizons']))}): about "
-                       f"{nat['median_s'] / guess:.3f} (an estimate, not a measurement)")
+        if (q, n) in by or not gq:
+            continue
+        top = max(gq["horizons"])
+        guesses = []
+        for key, field_, what, mine in (("time_exponent", "median_s", "time", nat["median_s"]),
+                                        ("instructions_exponent", "instructions", "instructions",
+                                         nat.get("instructions"))):
+            k = gq.get(key)
+            base = by[(q, top)].get(field_)
+            if k is None or not math.isfinite(k) or not base or not mine:
+                continue
+            guesses.append(f"{mine / (base * (n / top) ** k):.2f} from its {what} fit "
+                           f"(k={k:.2f} over N={', '.join(map(str, gq['horizons']))})")
+        if guesses:
+            out.append(f"N={n}: native/{LABELS[q]} NOT MEASURED (QOCOGEN capped at N={top}); "
+                       f"extrapolated, an estimate only: about " + "; ".join(guesses))
     return out
 
 
