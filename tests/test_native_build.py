@@ -137,3 +137,54 @@ def test_n50_source_size_and_no_unrolling(demo_vehicle):
                             if ln.strip() and not all(ch in "0123456789.,-+eEf" for ch in ln.strip()))
     assert sizes[50] < 300_000, sizes
     assert code_lines[50] == code_lines[20], code_lines
+
+
+UNINIT_DRIVER = r"""
+/* Test driver: one solve in a workspace that was never initialised. */
+#include <stdio.h>
+#include <stdlib.h>
+#include "pdg_socp.h"
+
+int main(int argc, char **argv)
+{
+    static pdg_real p[PDG_SOCP_NPARAM];
+    pdg_socp_work *w = malloc(sizeof *w);    /* the driver's heap, not the solver's */
+    FILE *f;
+    int i, st;
+    if (argc < 2 || w == NULL || (f = fopen(argv[1], "r")) == NULL) {
+        return 2;
+    }
+    for (i = 0; i < PDG_SOCP_NPARAM; ++i) {
+        double v;
+        if (fscanf(f, "%lf", &v) != 1) {
+            return 3;
+        }
+        p[i] = (pdg_real)v;
+    }
+    fclose(f);
+    st = pdg_socp_solve(w, p, NULL);
+    printf("%d %.17g\n", st, (double)w->objective);
+    free(w);
+    return 0;
+}
+"""
+
+
+@pytest.mark.skipif(shutil.which("valgrind") is None, reason="needs valgrind")
+def test_no_read_of_uninitialised_workspace(demo20, tmp_path):
+    """The caller need not clear the workspace: valgrind (memcheck) sees no
+    use of uninitialised memory in a solve."""
+    prog, cases = demo20
+    src = write_sources(render(prog), tmp_path)
+    (src / "driver.c").write_text(UNINIT_DRIVER)
+    exe = tmp_path / "driver"
+    subprocess.run(["gcc", "-O1", "-g", *STRICT_FLAGS, str(src / "driver.c"),
+                    str(src / "pdg_socp.c"), "-o", str(exe), "-lm"],
+                   check=True, capture_output=True, text=True)
+    pfile = tmp_path / "params.txt"
+    pfile.write_text(" ".join(repr(float(v)) for v in cases[0]) + "\n")
+    run = subprocess.run(["valgrind", "--error-exitcode=9", "--track-origins=yes", str(exe),
+                          str(pfile)], capture_output=True, text=True, timeout=600)
+    assert run.returncode == 0, run.stderr[-3000:]
+    assert run.stdout.split()[0] == "0"
+
