@@ -131,7 +131,7 @@ BACKENDS = {
     "cvxpygen-qoco": lambda: CvxpygenBackend("cvxpygen-qoco", "QOCOGEN", "QOCOGEN"),
 }
 
-DEFAULT_BACKEND = "cvxpygen-ecos"
+DEFAULT_BACKEND = "native"
 
 
 def get_backend(name: str):
