@@ -338,7 +338,8 @@ def build_harness(tree: Path, manifest: dict, archive: Path, out_dir: Path) -> P
     b = manifest["build"]
     cmd = [_cc(), "-std=c99", "-O2", "-Wall", "-Wextra"]
     cmd += [f"-I{tree / d}" for d in b["include_dirs"]] + [f"-D{d}" for d in b["defines"]]
-    cmd += [str(src), str(archive), "-lm", "-o", str(exe)]
+    cmd += [str(src), str(archive), "-lm", "-o", str(exe),
+            "-Wl,--wrap=malloc,--wrap=free,--wrap=calloc,--wrap=realloc"]
     r = subprocess.run(cmd, capture_output=True, text=True)
     if r.returncode != 0:
         raise RuntimeError(f"harness does not compile:\n{r.stderr[-3000:]}")
@@ -560,6 +561,9 @@ def summarise(cfg: Config, builds: dict, meas: dict) -> list:
             "source_bytes": bd.source_bytes,
             "text_bytes": bd.text_bytes, "data_bytes": bd.data_bytes, "bss_bytes": bd.bss_bytes,
             "static_ram_bytes": bd.data_bytes + bd.bss_bytes,
+            "heap_peak_bytes": _max([r["c"].get("heap_peak_bytes") for r in recs]),
+            "heap_allocations_per_call": _max([r["c"].get("heap_allocations_per_call")
+                                               for r in recs]),
             "workspace_bytes": bd.sizeof.get("sizeof_workspace"),
             "workspace_bytes_stated": bd.sizeof.get("workspace_bytes_stated"),
             "plan_bytes": bd.sizeof.get("sizeof_plan"),
@@ -804,8 +808,9 @@ def notes(cfg: Config) -> list:
         "(-O2 -fPIC); static RAM: data + bss of the same. The native backend keeps all its state "
         "in the caller-owned workspace (sizeof(<prefix>_workspace), from the harness; in "
         "parentheses the size the generated header states, computed at generation time); the "
-        "cvxpygen backends keep theirs in global data (static RAM) and ECOS also allocates "
-        "from the heap in its set-up (not counted here).",
+        "cvxpygen backends keep theirs in global data (static RAM). Heap: the harness wraps "
+        "malloc/calloc/realloc/free at link time and reports the peak of bytes live during the "
+        "calls (worst instance) and the allocations per call; 0 means no heap at run time.",
         "Compile seconds: the tree's own Makefile, `make -j2` on this machine.",
     ]
     if cfg.capped():
@@ -870,8 +875,9 @@ def table_markdown(results: dict) -> str:
             f"{_n(r['search_ratio_to_native'], '{:.2f}')} |")
     lines += ["", "## Size, memory, build", "",
               "| N | backend | source bytes (solver + guidance) | machine code (text) | "
-              "static RAM (data+bss) | workspace sizeof (header says) | generation | compile |",
-              "|---:|---|---:|---:|---:|---:|---:|---:|"]
+              "static RAM (data+bss) | workspace sizeof (header says) | heap peak (allocations "
+              "per call) | generation | compile |",
+              "|---:|---|---:|---:|---:|---:|---:|---:|---:|"]
     for r in rows:
         if r["backend"] == REFERENCE:
             continue
@@ -880,6 +886,7 @@ def table_markdown(results: dict) -> str:
             f"({_bytes(r['source_bytes_solver'])} + {_bytes(r['source_bytes_guidance'])}) | "
             f"{_bytes(r['text_bytes'])} | {_bytes(r['static_ram_bytes'])} | "
             f"{_bytes(r['workspace_bytes'])} ({_bytes(r.get('workspace_bytes_stated'))}) | "
+            f"{_bytes(r.get('heap_peak_bytes'))} ({_n(r.get('heap_allocations_per_call'), '{:.3g}')}) | "
             f"{r['generation_s']:.1f} s | {r['compile_s']:.1f} s |")
     lines += ["", "## Growth with the horizon (least squares on log-log)", "",
               "| backend | horizons | solve time ~ N^k, k | instructions ~ N^k, k | "
