@@ -886,7 +886,8 @@ def table_markdown(results: dict) -> str:
             f"({_bytes(r['source_bytes_solver'])} + {_bytes(r['source_bytes_guidance'])}) | "
             f"{_bytes(r['text_bytes'])} | {_bytes(r['static_ram_bytes'])} | "
             f"{_bytes(r['workspace_bytes'])} ({_bytes(r.get('workspace_bytes_stated'))}) | "
-            f"{_bytes(r.get('heap_peak_bytes'))} ({_n(r.get('heap_allocations_per_call'), '{:.3g}')}) | "
+            f"{_bytes(r.get('heap_peak_bytes'))} "
+            f"({_n(r.get('heap_allocations_per_call'), '{:.3g}')}) | "
             f"{r['generation_s']:.1f} s | {r['compile_s']:.1f} s |")
     lines += ["", "## Growth with the horizon (least squares on log-log)", "",
               "| backend | horizons | solve time ~ N^k, k | instructions ~ N^k, k | "
