@@ -811,6 +811,9 @@ def summarise(run_dir, worst: int = WORST_CASES, write_replay_vehicles: bool = T
             "compared": len(accs),
             "status_matches": sum(1 for r in accs if r["accuracy"]["status_match"]),
             "status_mismatch_cases": [r["case"] for r in accs if not r["accuracy"]["status_match"]][:100],
+            "status_pairs": [{"generated": g, "reference": rf, "cases": n} for (g, rf), n in
+                             _counts((r["generated"]["status"], r["reference"]["status"])
+                                     for r in accs).items()],
             "both_solved": sum(1 for r in accs if r["accuracy"]["fuel_diff_kg"] is not None),
             "fuel_rel_diff_abs": stats(absval(r["accuracy"]["fuel_rel_diff"]) for r in accs),
             "worst_fuel_rel_diff": worst_acc("fuel_rel_diff"),
@@ -873,6 +876,7 @@ def _figures(records) -> dict:
         axes[1].set_xscale("log")
         axes[1].set_yscale("log")
     for ax in axes:
+        ax.xaxis.set_major_locator(matplotlib.ticker.LogLocator(subs=(1.0, 2.0, 5.0)))
         ax.xaxis.set_major_formatter(matplotlib.ticker.FormatStrFormatter("%g"))
         ax.xaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
     axes[0].set_xlabel("solve time [ms] (whole search)")
@@ -976,9 +980,15 @@ def render_report(summary: dict, records: list, manifest: dict) -> str:
                 f"{a['status_matches']}, both solved on {a['both_solved']}. Differences are "
                 "generated minus reference.</p>"
                 + R.table(["worst difference", "value", "case"], acc_rows, text_columns=(0,)))
+    acc_body += R.table(["status (generated)", "status (reference)", "cases"],
+                        [[p["generated"], p["reference"], p["cases"]] for p in a["status_pairs"]],
+                        text_columns=(0, 1))
     if a["status_mismatch_cases"]:
-        acc_body += ("<p>Cases whose status differs from the reference: "
-                     + ", ".join(str(c) for c in a["status_mismatch_cases"]) + "</p>")
+        first = a["status_mismatch_cases"][:20]
+        acc_body += ("<p>Cases whose status differs from the reference"
+                     + (f" (first {len(first)})"
+                        if len(first) < a["compared"] - a["status_matches"] else "") + ": "
+                     + ", ".join(str(c) for c in first) + "</p>")
     if "accuracy" in figs:
         acc_body += R.image(figs["accuracy"], "relative fuel difference from the reference")
 
