@@ -31,7 +31,8 @@ def register(subparsers) -> None:
                     "and RUN_DIR/summary.json. Running the same command again resumes.")
     s.add_argument("dir", metavar="DIR", help="generated solver tree (with manifest.json, vehicle.toml)")
     s.add_argument("--dispersions", required=True, metavar="FILE", help="dispersion file (TOML)")
-    s.add_argument("--cases", required=True, type=_int_at_least("--cases", 1), metavar="N")
+    s.add_argument("--cases", required=True, type=_int_at_least("--cases", 1), metavar="N",
+                   help="number of cases; case i is the same for a given seed whatever N is")
     s.add_argument("--seed", type=_int_at_least("--seed", 0), default=None, metavar="S",
                    help="overrides the seed of the dispersion file")
     s.add_argument("--workers", type=_int_at_least("--workers", 1), default=None, metavar="K",
@@ -47,7 +48,7 @@ def register(subparsers) -> None:
                    "reference solve (default: 1.5 x the median of the first 16 cases)")
     s.add_argument("--out", default=None, metavar="RUN_DIR",
                    help="run directory (default: envelope-<tree name>-seed<S>)")
-    s.add_argument("--worst", type=_int_at_least("--worst", 1), default=10,
+    s.add_argument("--worst", type=_int_at_least("--worst", 1), default=10, metavar="K",
                    help="cases listed per worst-case criterion in the report (default 10)")
     s.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
     s.set_defaults(func=cmd_envelope)
