@@ -304,7 +304,7 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
              + 5                                     # dtau, dkappa, data_norm, reg, refine_floor
              + n + p + 2 * m + 2                     # xb, yb, zb, sb, taub, kappab
              + 5)                                    # objective, pres, dres, gap, mu
-    ints = dim + (dim + 1) + a["nnz_L"] + 7           # lfill, r_ptr, r_col, counters
+    ints = dim + (dim + 1) + 2 * a["nnz_L"] + 7       # lfill, r_ptr, r_col, r_pos, counters
     return {
         "precision": precision, "prefix": prefix,
         "n_params": prog.n_params, "n": prog.n, "p": prog.p, "m": prog.m,
