@@ -186,3 +186,70 @@ def test_qoco_backend_small_horizon(tmp_path):
     # QOCO has no infeasibility certificate: it may say iteration limit or
     # numerical trouble, but must never call an infeasible instance optimal.
     assert s.solve(*DEMO_STATE, time_of_flight_s=6.0).status != "optimal"
+
+
+# -- the native backend (the default) ------------------------------------------
+
+@pytest.fixture(scope="module")
+def native_tree(tmp_path_factory):
+    out = tmp_path_factory.mktemp("native") / "tree"
+    generate(DEMO_VEHICLE, N_ECOS, out, backend="native")
+    return out
+
+
+def test_native_tree_builds_strict_and_heap_free(native_tree, tmp_path):
+    # Strict C99 and no heap in the whole library: guidance layer, adapter and
+    # solver (the undefined symbols of every object, read with nm).
+    build = tmp_path / "t"
+    shutil.copytree(native_tree, build)
+    r = subprocess.run(["make", "-j2", "CFLAGS=-O2 -Wpedantic -Wshadow -Wconversion"], cwd=build,
+                       capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr[-3000:]
+    lib = build / "build" / "libpdg_guidance.a"
+    nm = subprocess.run(["nm", "-u", str(lib)], capture_output=True, text=True, check=True).stdout
+    undefined = {line.split()[-1] for line in nm.splitlines() if line.strip() and ":" not in line}
+    assert not undefined & {"malloc", "calloc", "realloc", "free"}, undefined
+    readme = (native_tree / "README.md").read_text()
+    assert "Not reentrant" not in readme and "Uses the heap" not in readme
+
+
+def test_native_agrees_and_workspaces_are_independent(native_tree):
+    s = load_solver(native_tree)
+    ref = ReferenceSolver(s.vehicle, N_ECOS)
+    ffi, lib = s.ffi, s.lib
+    a, b = ffi.new("pdg_workspace *"), ffi.new("pdg_workspace *")
+    pa, pb = ffi.new("pdg_plan *"), ffi.new("pdg_plan *")
+    ina = ffi.new("pdg_input *", {"position_m": DEMO_STATE[0], "velocity_mps": DEMO_STATE[1],
+                                  "mass_kg": DEMO_STATE[2], "time_of_flight_s": 40.0})
+    inb = ffi.new("pdg_input *", {"position_m": [1200.0, 100.0, 1700.0],
+                                  "velocity_mps": [-30.0, 5.0, -50.0], "mass_kg": 1880.0,
+                                  "time_of_flight_s": 45.0})
+    # Interleave: a, b, a again; a's answer must not depend on b's solve.
+    assert lib.pdg_plan_descent(a, ina, ffi.NULL, pa) == lib.PDG_OPTIMAL
+    first = bytes(ffi.buffer(pa))
+    assert lib.pdg_plan_descent(b, inb, ffi.NULL, pb) == lib.PDG_OPTIMAL
+    assert lib.pdg_plan_descent(a, ina, ffi.NULL, pa) == lib.PDG_OPTIMAL
+    assert bytes(ffi.buffer(pa)) == first
+    r = ref.solve(*DEMO_STATE, time_of_flight_s=40.0)
+    assert pa.objective == pytest.approx(r.objective, rel=1e-6)
+    g = s.solve(*DEMO_STATE)
+    r = ref.solve(*DEMO_STATE, fallback=False)
+    assert g.status == r.status == "optimal"
+    assert g.fuel_kg == pytest.approx(r.fuel_kg, rel=1e-6)
+
+
+@pytest.mark.slow
+def test_native_retries_a_failed_factorisation(tmp_path):
+    # Regression (found by pdgc check at N = 50): for this state and time of
+    # flight the factorisation failed near the optimum (primal residual stuck
+    # at 3e-8); the adapter's one retry with more regularisation solves it.
+    # The reference is Clarabel through CVXPY.
+    out = tmp_path / "n50"
+    generate(DEMO_VEHICLE, 50, out, backend="native")
+    s = load_solver(out)
+    state = ([1048.5946351976115, 101.59347903599559, 1385.9745494315157],
+             [-46.983398624834024, -9.779766779117743, -32.38581294087268], 1856.2910426344695)
+    g = s.solve(*state, time_of_flight_s=56.79737099774833)
+    r = ReferenceSolver(s.vehicle, 50).solve(*state, time_of_flight_s=56.79737099774833)
+    assert g.status == r.status == "optimal"
+    assert g.objective == pytest.approx(r.objective, rel=1e-6)
