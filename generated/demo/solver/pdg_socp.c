@@ -10,7 +10,8 @@
  *     K = [0 A' G'; A 0 0; G 0 -W'W]
  * once (LDL', fill-reducing ordering and pattern of L computed at generation
  * time) and solves with it three times (the two-solve trick for tau, plus the
- * predictor and corrector right-hand sides).
+ * predictor and corrector right-hand sides); the forward sweeps of the tau
+ * and predictor solves run inside the factorisation.
  *
  * Memory: everything lives in the caller's pdg_socp_work; every loop
  * is bounded by a compile-time size or by the clamped iteration limit.
@@ -2297,50 +2298,34 @@ static void load_data(pdg_socp_work *w, const real *params)
     }
 }
 
-/* out = A v (NEQ), out = A'v (NVAR), out = G v (NCON), out = G'v (NVAR); out += ... */
-static void a_mul(const pdg_socp_work *w, const real *v, real *out)
+/* One pass over the columns of A and G: ox = A'vy + G'vz, oy = A vx,
+ * oz = G vx (each output summed in the order of separate products). */
+static void kkt_offdiag_mul(const pdg_socp_work *w, const real *vx, const real *vy,
+                            const real *vz, real *ox, real *oy, real *oz)
 {
     const real *av = w->data + OFF_A;
+    const real *gv = w->data + OFF_G;
     int i, j, k;
     for (i = 0; i < NEQ; ++i) {
-        out[i] = R(0);
+        oy[i] = R(0);
     }
-    for (j = 0; j < NVAR; ++j) {
-        for (k = a_ptr[j]; k < a_ptr[j + 1]; ++k) {
-            out[a_row[k]] += av[k] * v[j];
-        }
-    }
-}
-
-static void g_mul(const pdg_socp_work *w, const real *v, real *out)
-{
-    const real *gv = w->data + OFF_G;
-    int i, j, k;
     for (i = 0; i < NCON; ++i) {
-        out[i] = R(0);
+        oz[i] = R(0);
     }
     for (j = 0; j < NVAR; ++j) {
-        for (k = g_ptr[j]; k < g_ptr[j + 1]; ++k) {
-            out[g_row[k]] += gv[k] * v[j];
-        }
-    }
-}
-
-/* out = A'vy + G'vz */
-static void at_gt_mul(const pdg_socp_work *w, const real *vy, const real *vz, real *out)
-{
-    const real *av = w->data + OFF_A;
-    const real *gv = w->data + OFF_G;
-    int j, k;
-    for (j = 0; j < NVAR; ++j) {
+        const real xj = vx[j];
         real acc = R(0);
         for (k = a_ptr[j]; k < a_ptr[j + 1]; ++k) {
-            acc += av[k] * vy[a_row[k]];
+            const int r = a_row[k];
+            acc += av[k] * vy[r];
+            oy[r] += av[k] * xj;
         }
         for (k = g_ptr[j]; k < g_ptr[j + 1]; ++k) {
-            acc += gv[k] * vz[g_row[k]];
+            const int r = g_row[k];
+            acc += gv[k] * vz[r];
+            oz[r] += gv[k] * xj;
         }
-        out[j] = acc;
+        ox[j] = acc;
     }
 }
 
@@ -2408,8 +2393,14 @@ static int nt_scaling(pdg_socp_work *w)
 static void apply_w(const pdg_socp_work *w, const real *v, real *out, int inverse)
 {
     int i, c, k;
-    for (i = 0; i < NLIN; ++i) {
-        out[i] = inverse ? v[i] / w->ntw[i] : v[i] * w->ntw[i];
+    if (inverse) {
+        for (i = 0; i < NLIN; ++i) {
+            out[i] = v[i] / w->ntw[i];
+        }
+    } else {
+        for (i = 0; i < NLIN; ++i) {
+            out[i] = v[i] * w->ntw[i];
+        }
     }
     for (c = 0; c < NSOC; ++c) {
         const int o = soc_start[c];
@@ -2560,9 +2551,9 @@ static real cone_violation(const real *u)
 static void cone_shift(real *u)
 {
     const real a = cone_violation(u);
-    int i, c;
     if (a >= R(0) || NCON == 0) {
         const real add = R(1) + (a > R(0) ? a : R(0));
+        int i, c;
         for (i = 0; i < NLIN; ++i) {
             u[i] += add;
         }
@@ -2626,7 +2617,8 @@ static void kkt_assemble_scaling(pdg_socp_work *w, int init)
 }
 
 /* Row-wise pattern of L (columns ascending in each row): a transpose of
- * the constant column pattern, O(nnz(L)) once per solve. */
+ * the constant column pattern, O(nnz(L)) once per solve; r_pos[t] is where
+ * the entry t of the row-wise order sits in the column-wise one. */
 static void row_pattern(pdg_socp_work *w)
 {
     int k, q;
@@ -2644,6 +2636,7 @@ static void row_pattern(pdg_socp_work *w)
         for (q = l_ptr[k]; q < l_ptr[k + 1]; ++q) {
             const int row = l_row[q];
             w->r_col[w->lfill[row]] = k;
+            w->r_pos[w->lfill[row]] = q;
             w->lfill[row] += 1;
         }
     }
@@ -2653,13 +2646,16 @@ static void row_pattern(pdg_socp_work *w)
  * is not finite. */
 static int ldl_factor(pdg_socp_work *w, const pdg_socp_settings *st)
 {
+    real *y1 = w->res;
+    real *y2 = w->corr;
     int k, t, j, q;
     for (k = 0; k < NKKT; ++k) {
         w->scat[k] = R(0);
-        w->lfill[k] = l_ptr[k];
     }
     for (k = 0; k < NKKT; ++k) {
         real d;
+        real f1 = w->rhs[perm[k]];
+        real f2 = w->rhs2[perm[k]];
         const real sgn = perm[k] < NVAR ? R(1) : R(-1);
         for (t = k_ptr[k]; t < k_ptr[k + 1]; ++t) {
             w->scat[k_row[t]] = w->kkt[t];
@@ -2667,18 +2663,25 @@ static int ldl_factor(pdg_socp_work *w, const pdg_socp_settings *st)
         d = w->scat[k];
         w->scat[k] = R(0);
         for (t = w->r_ptr[k]; t < w->r_ptr[k + 1]; ++t) {
-            const real yj = w->scat[w->r_col[t]];
-            real lkj;
+            /* rows are done in order, so the entries of column j above row
+             * k are those before L(k, j)'s own position in it */
+            const int pos = w->r_pos[t];
+            real yj, lkj;
             j = w->r_col[t];
+            yj = w->scat[j];
             w->scat[j] = R(0);
-            for (q = l_ptr[j]; q < w->lfill[j]; ++q) {
+            for (q = l_ptr[j]; q < pos; ++q) {
                 w->scat[l_row[q]] -= w->lx[q] * yj;
             }
             lkj = yj * w->dinv[j];
             d -= lkj * yj;
-            w->lx[w->lfill[j]] = lkj;
-            w->lfill[j] += 1;
+            w->lx[pos] = lkj;
+            w->lr[t] = lkj;
+            f1 -= lkj * y1[j];
+            f2 -= lkj * y2[j];
         }
+        y1[k] = f1;
+        y2[k] = f2;
         if (!(sgn * d > st->dynamic_reg_eps)) {
             if (d != d) {
                 return -1;
@@ -2695,30 +2698,52 @@ static int ldl_factor(pdg_socp_work *w, const pdg_socp_settings *st)
     return 0;
 }
 
-/* x = K^{-1} b with the regularised factor (b, x original order; x != b). */
+/* x = K^{-1} b with the regularised factor (b, x original order; x != b).
+ * The forward sweep L y = b runs by rows (a dot product with the values lr
+ * stored row-wise by ldl_factor), the backward sweep D L' x = y by columns;
+ * both add in the same order as a column-oriented sweep would. */
 static void ldl_solve(pdg_socp_work *w, const real *b, real *x)
 {
     real *t = w->scat;
     int k, q;
     for (k = 0; k < NKKT; ++k) {
-        t[k] = b[perm[k]];
-    }
-    /* L y = b, then D^{-1} (column k is final once reached) */
-    for (k = 0; k < NKKT; ++k) {
-        const real tk = t[k];
-        for (q = l_ptr[k]; q < l_ptr[k + 1]; ++q) {
-            t[l_row[q]] -= w->lx[q] * tk;
+        real acc = b[perm[k]];
+        for (q = w->r_ptr[k]; q < w->r_ptr[k + 1]; ++q) {
+            acc -= w->lr[q] * t[w->r_col[q]];
         }
-        t[k] = tk * w->dinv[k];
+        t[k] = acc;
     }
-    /* L' x = y, unpermuting as each entry becomes final */
+    /* x = L'^{-1} D^{-1} y, unpermuting as each entry becomes final */
     for (k = NKKT - 1; k >= 0; --k) {
-        real acc = t[k];
+        real acc = t[k] * w->dinv[k];
         for (q = l_ptr[k]; q < l_ptr[k + 1]; ++q) {
             acc -= w->lx[q] * t[l_row[q]];
         }
         t[k] = acc;
         x[perm[k]] = acc;
+    }
+}
+
+/* The backward sweep for the two right-hand sides rhs and rhs2 whose
+ * forward sweeps ldl_factor did as it computed L (y1 in res, y2 in corr):
+ * x1 = K^{-1} rhs, x2 = K^{-1} rhs2, each bit for bit as ldl_solve. */
+static void ldl_backsolve2(pdg_socp_work *w, real *x1, real *x2)
+{
+    real *t = w->res;
+    real *t2 = w->corr;
+    int k, q;
+    for (k = NKKT - 1; k >= 0; --k) {
+        real acc = t[k] * w->dinv[k];
+        real acc2 = t2[k] * w->dinv[k];
+        for (q = l_ptr[k]; q < l_ptr[k + 1]; ++q) {
+            const int i = l_row[q];
+            acc -= w->lx[q] * t[i];
+            acc2 -= w->lx[q] * t2[i];
+        }
+        t[k] = acc;
+        t2[k] = acc2;
+        x1[perm[k]] = acc;
+        x2[perm[k]] = acc2;
     }
 }
 
@@ -2791,42 +2816,47 @@ static int recover(pdg_socp_work *w, const pdg_socp_settings *st)
     return 1;
 }
 
-/* out = K0 v with the unregularised KKT matrix (W'W, or I when init). */
-static void kkt_mul(pdg_socp_work *w, const real *v, real *out, int init)
+/* res = b - K0 x with the unregularised KKT matrix (W'W, or I when init);
+ * returns the largest |entry| of res (entries that are not numbers are
+ * skipped, as by norm_inf). */
+static real kkt_residual(pdg_socp_work *w, const real *b, const real *x, int init)
 {
-    int i;
-    at_gt_mul(w, v + NVAR, v + NVAR + NEQ, out);
-    a_mul(w, v, out + NVAR);
-    g_mul(w, v, out + NVAR + NEQ);
-    if (init) {
-        for (i = 0; i < NCON; ++i) {
-            out[NVAR + NEQ + i] -= v[NVAR + NEQ + i];
-        }
-    } else {
-        apply_w2(w, v + NVAR + NEQ, w->t2);
-        for (i = 0; i < NCON; ++i) {
-            out[NVAR + NEQ + i] -= w->t2[i];
+    real *res = w->res;
+    real rn = R(0);
+    int k;
+    kkt_offdiag_mul(w, x, x + NVAR, x + NVAR + NEQ, res, res + NVAR, res + NVAR + NEQ);
+    if (!init) {
+        apply_w2(w, x + NVAR + NEQ, w->t2);
+    }
+    for (k = 0; k < NVAR + NEQ; ++k) {
+        const real r = b[k] - res[k];
+        const real a = FABS(r);
+        res[k] = r;
+        rn = a > rn ? a : rn;
+    }
+    {
+        const real *wz = init ? x + NVAR + NEQ : w->t2;
+        for (k = NVAR + NEQ; k < NKKT; ++k) {
+            const real r = b[k] - (res[k] - wz[k - NVAR - NEQ]);
+            const real a = FABS(r);
+            res[k] = r;
+            rn = a > rn ? a : rn;
         }
     }
+    return rn;
 }
 
 /* x = K0^{-1} b: regularised solve plus iterative refinement, which stops
  * when the residual is below refine_tol (1 + the largest |entry| of c, b, h)
  * or stops halving. */
-static void kkt_solve(pdg_socp_work *w, const pdg_socp_settings *st,
-                      const real *b, real *x, int init, int max_refine)
+static void kkt_refine(pdg_socp_work *w, const pdg_socp_settings *st,
+                       const real *b, real *x, int init, int max_refine)
 {
     const real bn = w->data_norm;
     real prev = R(HUGE_VAL);
     int it, k;
-    ldl_solve(w, b, x);
     for (it = 0; it < max_refine && it < st->refine_steps && it < 32; ++it) {
-        real rn;
-        kkt_mul(w, x, w->res, init);
-        for (k = 0; k < NKKT; ++k) {
-            w->res[k] = b[k] - w->res[k];
-        }
-        rn = norm_inf(w->res, NKKT);
+        const real rn = kkt_residual(w, b, x, init);
         if (!(rn > st->refine_tol * (R(1) + bn)) || !(rn > w->refine_floor)
             || !(rn < R(0.5) * prev)) {
             break;
@@ -2840,6 +2870,13 @@ static void kkt_solve(pdg_socp_work *w, const pdg_socp_settings *st,
     }
 }
 
+static void kkt_solve(pdg_socp_work *w, const pdg_socp_settings *st,
+                      const real *b, real *x, int init, int max_refine)
+{
+    ldl_solve(w, b, x);
+    kkt_refine(w, st, b, x, init, max_refine);
+}
+
 /* c'x + b'y + h'z of a KKT-sized vector u = (x, y, z). */
 static real cbh_dot(const pdg_socp_work *w, const real *u)
 {
@@ -2847,26 +2884,31 @@ static real cbh_dot(const pdg_socp_work *w, const real *u)
          + dot(w->data + OFF_H, u + NVAR + NEQ, NCON);
 }
 
-/* One search direction. sig = centring; refine = 0 for the predictor, whose
- * direction only sets the centring and the second-order term; rhs_z = W (lambda \ ds_comp) already
- * in w->t1; dkap = the tau-kappa complementarity term; cbh1 = c'x1+b'y1+h'z1
- * of the tau solve. Fills dx, dy, dz, ds, dtau, dkappa. */
-static void direction(pdg_socp_work *w, const pdg_socp_settings *st, real sig,
-                      real rt, real dkap, real cbh1, int refine)
+/* Right-hand side of a search direction into out: sig = centring,
+ * rhs_z = W (lambda \ ds_comp) already in w->t1. */
+static void direction_rhs(pdg_socp_work *w, real sig, real *out)
+{
+    const real om = R(1) - sig;
+    int i;
+    for (i = 0; i < NVAR; ++i) {
+        out[i] = -om * w->rx[i];
+    }
+    for (i = 0; i < NEQ; ++i) {
+        out[NVAR + i] = om * w->ry[i];
+    }
+    for (i = 0; i < NCON; ++i) {
+        out[NVAR + NEQ + i] = -om * w->rz[i] + w->t1[i];
+    }
+}
+
+/* One search direction from u0 = K^{-1} (its right-hand side): sig =
+ * centring; dkap = the tau-kappa complementarity term; cbh1 =
+ * c'x1+b'y1+h'z1 of the tau solve. Fills dx, dy, dz, dtau, dkappa. */
+static void direction(pdg_socp_work *w, real sig, real rt, real dkap, real cbh1)
 {
     const real om = R(1) - sig;
     real cbh0, dtau;
     int i;
-    for (i = 0; i < NVAR; ++i) {
-        w->rhs[i] = -om * w->rx[i];
-    }
-    for (i = 0; i < NEQ; ++i) {
-        w->rhs[NVAR + i] = om * w->ry[i];
-    }
-    for (i = 0; i < NCON; ++i) {
-        w->rhs[NVAR + NEQ + i] = -om * w->rz[i] + w->t1[i];
-    }
-    kkt_solve(w, st, w->rhs, w->u0, 0, refine ? 32 : PREDICTOR_REFINE);
     cbh0 = cbh_dot(w, w->u0);
     dtau = (-om * rt + dkap / w->tau - cbh0) / (cbh1 - w->kappa / w->tau);
     for (i = 0; i < NVAR; ++i) {
@@ -3009,38 +3051,37 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
     w->recoveries = 0;
     row_pattern(w);
     kkt_assemble_data(w);
+    /* the two right-hand sides [0; b; h] and [-c; 0; 0] */
+    for (i = 0; i < NVAR; ++i) {
+        w->rhs[i] = R(0);
+        w->rhs2[i] = -c[i];
+    }
+    for (i = 0; i < NEQ; ++i) {
+        w->rhs[NVAR + i] = b[i];
+        w->rhs2[NVAR + i] = R(0);
+    }
+    for (i = 0; i < NCON; ++i) {
+        w->rhs[NVAR + NEQ + i] = h[i];
+        w->rhs2[NVAR + NEQ + i] = R(0);
+    }
     if (factor_kkt(w, st, 1) != 0) {
         w->numerical_cause = 1;
         return finish(w, PDG_SOCP_NUMERICAL, by_hz, cx);
     }
-    for (i = 0; i < NVAR; ++i) {
-        w->rhs[i] = R(0);
-    }
-    for (i = 0; i < NEQ; ++i) {
-        w->rhs[NVAR + i] = b[i];
-    }
-    for (i = 0; i < NCON; ++i) {
-        w->rhs[NVAR + NEQ + i] = h[i];
-    }
-    kkt_solve(w, st, w->rhs, w->u0, 1, 32);
+    ldl_backsolve2(w, w->u0, w->u1);
+    kkt_refine(w, st, w->rhs, w->u0, 1, 32);
+    kkt_refine(w, st, w->rhs2, w->u1, 1, 32);
     for (i = 0; i < NVAR; ++i) {
         w->x[i] = w->u0[i];
     }
     for (i = 0; i < NCON; ++i) {
         w->s[i] = -w->u0[NVAR + NEQ + i];
     }
-    for (i = 0; i < NVAR; ++i) {
-        w->rhs[i] = -c[i];
-    }
-    for (i = NVAR; i < NKKT; ++i) {
-        w->rhs[i] = R(0);
-    }
-    kkt_solve(w, st, w->rhs, w->u0, 1, 32);
     for (i = 0; i < NEQ; ++i) {
-        w->y[i] = w->u0[NVAR + i];
+        w->y[i] = w->u1[NVAR + i];
     }
     for (i = 0; i < NCON; ++i) {
-        w->z[i] = w->u0[NVAR + NEQ + i];
+        w->z[i] = w->u1[NVAR + NEQ + i];
     }
     cone_shift(w->s);
     cone_shift(w->z);
@@ -3057,15 +3098,13 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
             return finish(w, PDG_SOCP_NUMERICAL, by_hz, cx);
         }
         /* residuals of the embedding */
-        at_gt_mul(w, w->y, w->z, w->rx);
+        kkt_offdiag_mul(w, w->x, w->y, w->z, w->rx, w->ry, w->rz);
         for (i = 0; i < NVAR; ++i) {
             w->rx[i] += c[i] * w->tau;
         }
-        a_mul(w, w->x, w->ry);
         for (i = 0; i < NEQ; ++i) {
             w->ry[i] = -w->ry[i] + b[i] * w->tau;
         }
-        g_mul(w, w->x, w->rz);
         for (i = 0; i < NCON; ++i) {
             w->rz[i] += w->s[i] - h[i] * w->tau;
         }
@@ -3129,16 +3168,10 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
             break;
         }
 
-        /* factorisation */
-        save_iterate(w);
-        if (factor_kkt(w, st, 0) != 0) {
-            if (recover(w, st)) {
-                continue;
-            }
-            w->numerical_cause = 1;
-            return finish(w, PDG_SOCP_NUMERICAL, by_hz, cx);
-        }
-        /* tau solve: K u1 = [-c; b; h] */
+        /* right-hand sides of the tau solve K u1 = [-c; b; h] and of the
+         * predictor (its ds_comp = lambda o lambda, so lambda \ ds_comp =
+         * lambda): their forward sweeps run inside the factorisation, their
+         * backward sweeps in one pass; then each is refined on its own */
         for (i = 0; i < NVAR; ++i) {
             w->rhs[i] = -c[i];
         }
@@ -3148,16 +3181,26 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         for (i = 0; i < NCON; ++i) {
             w->rhs[NVAR + NEQ + i] = h[i];
         }
-        kkt_solve(w, st, w->rhs, w->u1, 0, 32);
-        cbh1 = cbh_dot(w, w->u1);
-
-        /* predictor: ds_comp = lambda o lambda, so lambda \ ds_comp = lambda */
         for (i = 0; i < NCON; ++i) {
             w->t2[i] = w->lambda[i];
         }
         apply_w(w, w->t2, w->t1, 0);
+        direction_rhs(w, R(0), w->rhs2);
+        /* factorisation */
+        save_iterate(w);
+        if (factor_kkt(w, st, 0) != 0) {
+            if (recover(w, st)) {
+                continue;
+            }
+            w->numerical_cause = 1;
+            return finish(w, PDG_SOCP_NUMERICAL, by_hz, cx);
+        }
+        ldl_backsolve2(w, w->u1, w->u0);
+        kkt_refine(w, st, w->rhs, w->u1, 0, 32);
+        cbh1 = cbh_dot(w, w->u1);
+        kkt_refine(w, st, w->rhs2, w->u0, 0, PREDICTOR_REFINE);
         dkap = w->kappa * w->tau;
-        direction(w, st, R(0), rt, dkap, cbh1, 0);
+        direction(w, R(0), rt, dkap, cbh1);
         for (i = 0; i < NCON; ++i) {
             w->t2[i] = w->lambda[i];
         }
@@ -3186,7 +3229,9 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         dkap = w->kappa * w->tau + w->dkappa * w->dtau - sig * mu;
         cone_div(w->lambda, w->t2, w->dsa);     /* dsa := lambda \ ds_comp */
         apply_w(w, w->dsa, w->t1, 0);
-        direction(w, st, sig, rt, dkap, cbh1, 1);
+        direction_rhs(w, sig, w->rhs);
+        kkt_solve(w, st, w->rhs, w->u0, 0, 32);
+        direction(w, sig, rt, dkap, cbh1);
         for (i = 0; i < NCON; ++i) {
             w->t2[i] = w->dsa[i];
         }

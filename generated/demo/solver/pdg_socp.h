@@ -91,15 +91,18 @@ typedef struct {
     pdg_real eta[199];
     /* KKT matrix (permuted upper CSC values) and its LDL' factor */
     pdg_real kkt[PDG_SOCP_KKT_NNZ];
-    pdg_real lx[8821];
+    pdg_real lx[8821];   /* L by columns (pattern l_ptr, l_row) */
+    pdg_real lr[8821];   /* the same values by rows (pattern r_ptr, r_col) */
     pdg_real dg[PDG_SOCP_NKKT];
     pdg_real dinv[PDG_SOCP_NKKT];
     pdg_real scat[PDG_SOCP_NKKT];
     int lfill[PDG_SOCP_NKKT];
     int r_ptr[PDG_SOCP_NKKT + 1];   /* row-wise pattern of L, built per solve */
     int r_col[8821];
+    int r_pos[8821];           /* position in lx of each row-wise entry */
     /* right-hand sides, solutions, refinement scratch */
     pdg_real rhs[PDG_SOCP_NKKT];
+    pdg_real rhs2[PDG_SOCP_NKKT];
     pdg_real u0[PDG_SOCP_NKKT];
     pdg_real u1[PDG_SOCP_NKKT];
     pdg_real res[PDG_SOCP_NKKT];
