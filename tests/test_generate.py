@@ -177,6 +177,9 @@ def test_qoco_backend_small_horizon(tmp_path):
     # keeps it at N = 5.
     out = tmp_path / "qoco"
     generate(DEMO_VEHICLE, N_QOCO, out, backend="cvxpygen-qoco")
+    # The tree builds on its own, guidance layer and adapter with -Werror.
+    r = subprocess.run(["make", "-j2"], cwd=out, capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr[-3000:]
     s = load_solver(out)
     ref = ReferenceSolver(s.vehicle, N_QOCO)
     g = s.solve(*DEMO_STATE, time_of_flight_s=40.0)
