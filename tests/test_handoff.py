@@ -313,10 +313,6 @@ def test_cppcheck_finds_nothing_in_the_handoff_files(built):
     assert not ours, ours
 
 
-@pytest.mark.xfail(strict=True, reason="cppcheck variableScope (style) findings in the "
-                   "generated code: templates/native/socp.c.j2 cone_shift `int i, c;` and "
-                   "templates/guidance.c.j2 search_tof `int j;` -- reported to the lead; "
-                   "remove this mark once fixed")
 def test_cppcheck_finds_nothing_in_the_whole_package(built):
     need("cppcheck")
     findings = built["result"]["checks"]["cppcheck_findings"]
