@@ -39,7 +39,6 @@ worker count, the order of completion or a resumption.
 
 from __future__ import annotations
 
-import difflib
 import hashlib
 import math
 import tomllib
@@ -50,6 +49,8 @@ import numpy as np
 from scipy import special
 
 from .errors import InputError
+from .errors import finite_number as _number
+from .errors import suggest_key as _suggest
 
 DISTRIBUTIONS = {
     "fixed": ("value",),
@@ -209,20 +210,6 @@ class Dispersions:
 
 
 # -- validation ---------------------------------------------------------------
-
-def _suggest(key: str, known) -> str:
-    near = difflib.get_close_matches(str(key), list(known), n=1, cutoff=0.5)
-    return f"did you mean '{near[0]}'?" if near else ""
-
-
-def _number(where: str, value) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(where, value, "must be a number")
-    v = float(value)
-    if not math.isfinite(v):
-        raise InputError(where, value, "must be a finite number (no nan or inf)")
-    return v
-
 
 def check_seed(where: str, value) -> int:
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)):

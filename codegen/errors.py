@@ -1,4 +1,8 @@
-"""Errors that carry the field, the value and the rule that was broken."""
+"""Errors that carry the field, the value and the rule that was broken,
+and the small checks every input file (vehicle, dispersions, errors) shares."""
+
+import difflib
+import math
 
 
 class InputError(ValueError):
@@ -16,3 +20,19 @@ class InputError(ValueError):
         if hint:
             msg += f" ({hint})"
         super().__init__(msg)
+
+
+def suggest_key(key, known) -> str:
+    """'did you mean ...?' for an unknown key, or '' when nothing is close."""
+    near = difflib.get_close_matches(str(key), list(known), n=1, cutoff=0.5)
+    return f"did you mean '{near[0]}'?" if near else ""
+
+
+def finite_number(where: str, value) -> float:
+    """A TOML number (not a bool), finite, as float; InputError otherwise."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(where, value, "must be a number")
+    v = float(value)
+    if not math.isfinite(v):
+        raise InputError(where, value, "must be a finite number (no nan or inf)")
+    return v

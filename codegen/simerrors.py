@@ -42,7 +42,6 @@ by :func:`check_against_settings`.
 
 from __future__ import annotations
 
-import difflib
 import hashlib
 import math
 import tomllib
@@ -50,6 +49,8 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 
 from .errors import InputError
+from .errors import finite_number as _number
+from .errors import suggest_key as _suggest
 
 # table -> key -> (kind, description). kind: "vec" (three spreads >= 0),
 # "vec_any" (three numbers), "nonneg", "bool", "positive".
@@ -117,20 +118,6 @@ class ErrorModel:
         if math.isinf(d["throttle_rate_max_per_s"]):
             d["throttle_rate_max_per_s"] = None
         return d
-
-
-def _suggest(key: str, known) -> str:
-    near = difflib.get_close_matches(key, list(known), n=1, cutoff=0.5)
-    return f"did you mean '{near[0]}'?" if near else ""
-
-
-def _number(where: str, value) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(where, value, "must be a number")
-    v = float(value)
-    if not math.isfinite(v):
-        raise InputError(where, value, "must be a finite number (no nan or inf)")
-    return v
 
 
 def _value(where: str, kind: str, value):

@@ -10,7 +10,6 @@ warnings on the loaded :class:`Vehicle`.
 
 from __future__ import annotations
 
-import difflib
 import hashlib
 import math
 import tomllib
@@ -18,6 +17,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .errors import InputError
+from .errors import finite_number as _number
+from .errors import suggest_key as _suggest
 
 #: Standard gravity, exact by definition (3rd CGPM, 1901; BIPM SI Brochure).
 G0_MPS2 = 9.80665
@@ -102,20 +103,6 @@ class Vehicle:
         out = {k: getattr(self, k) for k in VEHICLE_KEYS}
         out["envelope"] = {k: getattr(self.envelope, k) for k in ENVELOPE_KEYS}
         return out
-
-
-def _suggest(key: str, known) -> str:
-    near = difflib.get_close_matches(key, list(known), n=1, cutoff=0.5)
-    return f"did you mean '{near[0]}'?" if near else ""
-
-
-def _number(where: str, value) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(where, value, "must be a number")
-    v = float(value)
-    if not math.isfinite(v):
-        raise InputError(where, value, "must be a finite number (no nan or inf)")
-    return v
 
 
 def _vector3(where: str, value) -> tuple:
