@@ -41,7 +41,7 @@ from pathlib import Path
 import numpy as np
 
 from codegen.bind import GeneratedSolver, cdef_text
-from codegen.emit import generate, read_manifest
+from codegen.emit import generate
 from codegen.errors import InputError
 from codegen.fsutil import write_atomic
 from codegen.reference import ReferenceSolver
@@ -377,22 +377,7 @@ class ArchiveSolver(GeneratedSolver):
     ``solve`` is bind's own; only the loading differs."""
 
     def __init__(self, tree_dir, module):
-        self.tree_dir = Path(tree_dir).resolve()
-        self._mod, self.manifest = module, read_manifest(self.tree_dir)
-        self.ffi, self.lib = module.ffi, module.lib
-        self.prefix = self.manifest["prefix"]
-        self.horizon = int(self.manifest["horizon"])
-        self.backend = self.manifest["backend"]
-        self.name = f"generated:{self.backend}"
-        self.vehicle = load_vehicle(self.tree_dir / "vehicle.toml")
-        p = self.prefix
-        self._plan_fn = getattr(self.lib, f"{p}_plan_descent")
-        self._work = self.ffi.new(f"{p}_workspace *")
-        self._plan = self.ffi.new(f"{p}_plan *")
-        self._input = self.ffi.new(f"{p}_input *")
-        self._settings = self.ffi.new(f"{p}_settings *")
-        getattr(self.lib, f"{p}_settings_default")(self._settings)
-        self.default_max_iterations = int(self._settings.max_iterations)
+        super().__init__(tree_dir, module=module)
 
 
 def load_cffi(b: Build) -> ArchiveSolver:

@@ -127,9 +127,14 @@ def _compile(tree_dir: Path, manifest: dict, name: str, cache: Path, quiet: bool
 class GeneratedSolver:
     """A generated C solver, called through cffi. Same interface as the reference."""
 
-    def __init__(self, tree_dir, quiet: bool = True):
+    def __init__(self, tree_dir, quiet: bool = True, module=None):
+        """``module``: an already built cffi module for this tree (the bench
+        links one against the tree's own archive); by default bind builds it."""
         self.tree_dir = Path(tree_dir).resolve()
-        self._mod, self.manifest = build_module(self.tree_dir, quiet)
+        if module is None:
+            self._mod, self.manifest = build_module(self.tree_dir, quiet)
+        else:
+            self._mod, self.manifest = module, verify_tree(self.tree_dir)
         self.ffi, self.lib = self._mod.ffi, self._mod.lib
         self.prefix = self.manifest["prefix"]
         self.horizon = int(self.manifest["horizon"])
