@@ -34,6 +34,8 @@ demo: $(STAMP)
 	$(MAKE) -C $(DEMO_TREE)
 	./$(DEMO_TREE)/build/pdg_example
 	$(PDGC) check $(DEMO_TREE) --cases 50 --json $(DEMO_OUT)/check.json
+	rm -rf $(DEMO_OUT)/envelope && $(PDGC) envelope $(DEMO_TREE) --dispersions examples/demo_dispersions.toml --cases 100 --workers 2 --reference-every 20 --no-progress --out $(DEMO_OUT)/envelope
+	@echo "envelope report: $(DEMO_OUT)/envelope/report.html"
 	rm -rf $(DEMO_OUT)/sim && $(PDGC) simulate $(DEMO_TREE) --runs 20 --seed 1 --errors examples/demo_errors.toml --out $(DEMO_OUT)/sim --quiet
 	@echo "closed-loop report: $(DEMO_OUT)/sim/report.html"
 

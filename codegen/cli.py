@@ -94,7 +94,10 @@ def cmd_solve(args) -> int:
                              f"the generated solver in {args.solver_dir} has horizon {solver.horizon}")
     else:
         solver = ReferenceSolver(vehicle, args.horizon)
-    traj = solver.solve(pos, vel, mass, args.tof, target)
+    if args.solver_dir:
+        traj = solver.solve(pos, vel, mass, args.tof, target)
+    else:
+        traj = solver.solve(pos, vel, mass, args.tof, target, fallback=not args.no_fallback)
     if args.json:
         print(traj.to_json())
     else:
@@ -150,6 +153,9 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--target", default=None, help="X,Y,Z of the landing target [m]")
     s.add_argument("--solver-dir", default=None,
                    help="use the generated solver in this tree instead of the reference")
+    s.add_argument("--no-fallback", action="store_true",
+                   help="report 'infeasible' when the target is out of reach instead of the "
+                        "two-stage least-miss plan (as generated solvers do)")
     s.add_argument("--json", action="store_true", help="print one JSON object")
     s.add_argument("--plot", default=None, metavar="FILE.png")
     s.set_defaults(func=cmd_solve)

@@ -64,3 +64,14 @@ def test_console_script_runs():
     r = subprocess.run([sys.executable, "-m", "codegen.cli", "--version"], capture_output=True,
                        text=True)
     assert r.returncode == 0 and "pdgc" in r.stdout
+
+
+def test_no_fallback_reports_infeasible_like_generated_code(capsys):
+    # Out of reach (20 km downrange): least_miss with the two-stage fallback
+    # (Blackmore et al. 2010), infeasible without it.
+    far = "20000,0,1500,-50,0,-40,1900"
+    assert main(["solve", str(DEMO_VEHICLE), "--state", far, "--horizon", "10", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["status"] == "least_miss"
+    assert main(["solve", str(DEMO_VEHICLE), "--state", far, "--horizon", "10", "--json",
+                 "--no-fallback"]) == 1
+    assert json.loads(capsys.readouterr().out)["status"] == "infeasible"
