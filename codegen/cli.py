@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import json
-import math
 import sys
 from pathlib import Path
 
@@ -46,16 +44,22 @@ def parse_vector3(name: str, text: str):
         raise InputError(name, text, "must be three comma-separated numbers") from None
 
 
-def positive_int(name):
+def int_at_least(name, low):
+    """argparse type: an integer >= low, with an error naming the option."""
     def conv(text):
         try:
             v = int(text)
         except ValueError:
             raise argparse.ArgumentTypeError(f"{name} = {text!r}: must be an integer") from None
-        if v < 2:
-            raise argparse.ArgumentTypeError(f"{name} = {v}: must be >= 2")
+        if v < low:
+            raise argparse.ArgumentTypeError(f"{name} = {v}: must be >= {low}")
         return v
     return conv
+
+
+def positive_int(name):
+    """A horizon-like count: an integer >= 2."""
+    return int_at_least(name, 2)
 
 
 def cmd_init(args) -> int:

@@ -2,24 +2,12 @@
 
 from __future__ import annotations
 
-import argparse
 import os
 import sys
 from pathlib import Path
 
 from .errors import InputError
-
-
-def _int_at_least(name, low):
-    def conv(text):
-        try:
-            v = int(text)
-        except ValueError:
-            raise argparse.ArgumentTypeError(f"{name} = {text!r}: must be an integer") from None
-        if v < low:
-            raise argparse.ArgumentTypeError(f"{name} = {v}: must be >= {low}")
-        return v
-    return conv
+from .cli import int_at_least
 
 
 def register(subparsers) -> None:
@@ -31,24 +19,24 @@ def register(subparsers) -> None:
                     "and RUN_DIR/summary.json. Running the same command again resumes.")
     s.add_argument("dir", metavar="DIR", help="generated solver tree (with manifest.json, vehicle.toml)")
     s.add_argument("--dispersions", required=True, metavar="FILE", help="dispersion file (TOML)")
-    s.add_argument("--cases", required=True, type=_int_at_least("--cases", 1), metavar="N",
+    s.add_argument("--cases", required=True, type=int_at_least("--cases", 1), metavar="N",
                    help="number of cases; case i is the same for a given seed whatever N is")
-    s.add_argument("--seed", type=_int_at_least("--seed", 0), default=None, metavar="S",
+    s.add_argument("--seed", type=int_at_least("--seed", 0), default=None, metavar="S",
                    help="overrides the seed of the dispersion file")
-    s.add_argument("--workers", type=_int_at_least("--workers", 1), default=None, metavar="K",
+    s.add_argument("--workers", type=int_at_least("--workers", 1), default=None, metavar="K",
                    help="local worker processes (default: number of cores)")
     s.add_argument("--scheduler", default=None, metavar="ADDRESS",
                    help="run on this Dask distributed scheduler (e.g. tcp://127.0.0.1:8786)")
-    s.add_argument("--reference-every", type=_int_at_least("--reference-every", 0), default=50,
+    s.add_argument("--reference-every", type=int_at_least("--reference-every", 0), default=50,
                    metavar="M", help="reference solve on every M-th case (default 50; 0: only "
                    "on cases that stand out)")
-    s.add_argument("--stand-out-iterations", type=_int_at_least("--stand-out-iterations", 1),
+    s.add_argument("--stand-out-iterations", type=int_at_least("--stand-out-iterations", 1),
                    default=None, metavar="K",
                    help="a case with more than K iterations in one solve stands out and gets a "
                    "reference solve (default: 1.5 x the median of the first 16 cases)")
     s.add_argument("--out", default=None, metavar="RUN_DIR",
                    help="run directory (default: envelope-<tree name>-seed<S>)")
-    s.add_argument("--worst", type=_int_at_least("--worst", 1), default=10, metavar="K",
+    s.add_argument("--worst", type=int_at_least("--worst", 1), default=10, metavar="K",
                    help="cases listed per worst-case criterion in the report (default 10)")
     s.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
     s.set_defaults(func=cmd_envelope)

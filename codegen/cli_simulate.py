@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import sys
+from .cli import int_at_least
 
 
 def _float(name):
@@ -20,20 +21,6 @@ def _float(name):
     return conv
 
 
-def _int(name, low):
-    import argparse
-
-    def conv(text):
-        try:
-            v = int(text)
-        except ValueError:
-            raise argparse.ArgumentTypeError(f"{name} = {text!r}: must be an integer") from None
-        if v < low:
-            raise argparse.ArgumentTypeError(f"{name} = {v}: must be >= {low}")
-        return v
-    return conv
-
-
 def register(sub) -> None:
     s = sub.add_parser(
         "simulate",
@@ -44,8 +31,8 @@ def register(sub) -> None:
                     "same command resumes an interrupted batch. Writes summary.json and a "
                     "self-contained report.html.")
     s.add_argument("dir", help="generated solver tree (or a dry-run tree, see DEVELOPERS.md)")
-    s.add_argument("--runs", type=_int("--runs", 1), required=True, help="number of runs")
-    s.add_argument("--seed", type=_int("--seed", 0), default=1, help="batch seed (default 1)")
+    s.add_argument("--runs", type=int_at_least("--runs", 1), required=True, help="number of runs")
+    s.add_argument("--seed", type=int_at_least("--seed", 0), default=1, help="batch seed (default 1)")
     s.add_argument("--errors", default=None, metavar="FILE",
                    help="error file (TOML); default: no errors (ideal loop)")
     s.add_argument("--rate", type=_float("--rate"), default=1.0, metavar="HZ",

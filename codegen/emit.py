@@ -27,6 +27,7 @@ from . import __version__, tofsearch
 from .backends import DEFAULT_BACKEND, get_backend
 from .canonical import extract
 from .errors import InputError
+from .fsutil import swap_in_directory
 from .problem import MASS_FLOOR_FRACTION, DescentProblem
 from .vehicle import VEHICLE_KEYS, load_vehicle
 
@@ -208,17 +209,10 @@ def write_tree(out_dir: Path, files: dict) -> None:
             path = tmp / rel
             path.parent.mkdir(parents=True, exist_ok=True)
             path.write_bytes(data)
-        tmp.chmod(0o755)
-        old = None
-        if out_dir.exists():
-            old = out_dir.parent / f".{out_dir.name}.old-{tmp.name[-8:]}"
-            out_dir.rename(old)
-        tmp.rename(out_dir)
-        if old is not None:
-            shutil.rmtree(old)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
+    swap_in_directory(tmp, out_dir)
 
 
 def read_manifest(tree_dir) -> dict:

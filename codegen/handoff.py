@@ -1028,7 +1028,7 @@ def tar_gz_bytes(root_name: str, files: dict) -> bytes:
 
 def _write_package(out_dir: Path, files: dict) -> Path:
     """Directory beside out_dir, renamed into place; then the tarball (atomic)."""
-    from .fsutil import write_atomic
+    from .fsutil import write_atomic, swap_in_directory
     out_dir = out_dir.resolve()
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     if out_dir.exists():
@@ -1042,17 +1042,10 @@ def _write_package(out_dir: Path, files: dict) -> Path:
         write_files(tmp, files)
         for p in sorted(tmp.rglob("*")):
             p.chmod(0o755 if p.is_dir() else 0o644)
-        tmp.chmod(0o755)
-        old = None
-        if out_dir.exists():
-            old = out_dir.parent / f".{out_dir.name}.old-{tmp.name[-8:]}"
-            out_dir.rename(old)
-        tmp.rename(out_dir)
-        if old is not None:
-            shutil.rmtree(old)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
+    swap_in_directory(tmp, out_dir)
     tarball = out_dir.parent / f"{out_dir.name}.tar.gz"
     write_atomic(tarball, tar_gz_bytes(out_dir.name, files))
     return tarball
