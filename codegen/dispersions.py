@@ -39,16 +39,14 @@ worker count, the order of completion or a resumption.
 
 from __future__ import annotations
 
-import hashlib
 import math
-import tomllib
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 from scipy import special
 
 from .errors import InputError
+from .fsutil import read_toml
 from .errors import finite_number as _number
 from .errors import suggest_key as _suggest
 
@@ -334,13 +332,5 @@ def parse_dispersions(data: dict, vehicle=None, source_sha256: str = "") -> Disp
 
 def load_dispersions(path, vehicle=None) -> Dispersions:
     """Read and validate a dispersion file. Raises InputError on any fault."""
-    path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except OSError as exc:
-        raise InputError("dispersion file", str(path), f"cannot be read: {exc.strerror}") from None
-    try:
-        data = tomllib.loads(raw.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise InputError("dispersion file", str(path), f"is not valid TOML: {exc}") from None
-    return parse_dispersions(data, vehicle, hashlib.sha256(raw).hexdigest())
+    data, digest = read_toml(path, "dispersion file")
+    return parse_dispersions(data, vehicle, digest)

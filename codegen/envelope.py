@@ -36,7 +36,7 @@ from pathlib import Path
 from . import __version__
 from .dispersions import Dispersions
 from .errors import InputError
-from .fsutil import write_atomic
+from .fsutil import complete_lines, write_atomic
 from .trajectory import OPTIMAL, SOLVED
 
 RUN_FORMAT = "pdgc-envelope-run/1"
@@ -361,20 +361,8 @@ def read_results(path) -> list:
     only the text after the last newline can be torn by a kill, and it is
     removed so that the next append starts on a fresh line.
     """
-    path = Path(path)
-    if not path.exists():
-        return []
-    data = path.read_bytes()
-    end = data.rfind(b"\n") + 1
-    if end < len(data):
-        with open(path, "r+b") as fh:
-            fh.truncate(end)
-            fh.flush()
-            os.fsync(fh.fileno())
     records = []
-    for n, line in enumerate(data[:end].splitlines(), 1):
-        if not line.strip():
-            continue
+    for n, line in complete_lines(path):
         try:
             rec = json.loads(line)
         except json.JSONDecodeError as exc:

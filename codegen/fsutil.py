@@ -1,11 +1,19 @@
-"""Atomic file writes: a reader never sees half a file."""
+"""Files written so that a reader never sees half of one, and read back the same way.
+
+write_atomic and swap_in_directory write; complete_lines reads an
+append-only log whose last line a kill may have torn; read_toml reads an
+input file once, for both its contents and its hash."""
 
 from __future__ import annotations
 
+import hashlib
 import os
 import shutil
 import tempfile
+import tomllib
 from pathlib import Path
+
+from .errors import InputError
 
 
 def write_atomic(path, data, mode: int = 0o644) -> None:
@@ -49,3 +57,42 @@ def swap_in_directory(tmp: Path, out_dir: Path) -> None:
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
+
+
+def complete_lines(path) -> list:
+    """[(line number, bytes)] of the non-blank whole lines of an append-only log.
+
+    A line that ends with a newline was written whole (one write per record);
+    only the text after the last newline can be torn by a kill. It is cut off
+    the file, so that the next append starts on a fresh line, and ignored.
+    A missing file has no lines.
+    """
+    path = Path(path)
+    if not path.exists():
+        return []
+    data = path.read_bytes()
+    end = data.rfind(b"\n") + 1
+    if end < len(data):
+        with open(path, "r+b") as fh:
+            fh.truncate(end)
+            fh.flush()
+            os.fsync(fh.fileno())
+    return [(n, line) for n, line in enumerate(data[:end].splitlines(), 1) if line.strip()]
+
+
+def read_toml(path, what: str):
+    """(parsed document, sha256 of the bytes) of a TOML input file.
+
+    ``what`` names the file in errors ("vehicle file", ...): an unreadable
+    file or bad TOML is an InputError, never a traceback.
+    """
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise InputError(what, str(path), f"cannot be read: {exc.strerror}") from None
+    try:
+        data = tomllib.loads(raw.decode("utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise InputError(what, str(path), f"is not valid TOML: {exc}") from None
+    return data, hashlib.sha256(raw).hexdigest()

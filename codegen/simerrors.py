@@ -42,13 +42,11 @@ by :func:`check_against_settings`.
 
 from __future__ import annotations
 
-import hashlib
 import math
-import tomllib
 from dataclasses import asdict, dataclass
-from pathlib import Path
 
 from .errors import InputError
+from .fsutil import read_toml
 from .errors import finite_number as _number
 from .errors import suggest_key as _suggest
 
@@ -173,16 +171,8 @@ def parse_errors(data: dict, source: str = "", source_sha256: str = "") -> Error
 
 def load_errors(path) -> ErrorModel:
     """Read and validate an error file. Raises InputError on any fault."""
-    path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except OSError as exc:
-        raise InputError("error file", str(path), f"cannot be read: {exc.strerror}") from None
-    try:
-        data = tomllib.loads(raw.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise InputError("error file", str(path), f"is not valid TOML: {exc}") from None
-    return parse_errors(data, str(path), hashlib.sha256(raw).hexdigest())
+    data, digest = read_toml(path, "error file")
+    return parse_errors(data, str(path), digest)
 
 
 def check_against_settings(errors: ErrorModel, step_s: float, rate_hz: float) -> None:

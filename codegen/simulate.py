@@ -112,7 +112,7 @@ import numpy as np
 
 from . import __version__
 from .errors import InputError
-from .fsutil import write_atomic
+from .fsutil import complete_lines, write_atomic
 from .simerrors import ErrorModel, check_against_settings
 from .trajectory import BAD_INPUT
 from .vehicle import Vehicle, load_vehicle
@@ -755,20 +755,8 @@ def fly(solver, errors: ErrorModel, settings: Settings, seed: int, index: int,
 def read_records(path) -> dict:
     """{run index: record} from a JSONL file; a torn last line is cut off the
     file (so the next append starts on a clean line) and ignored."""
-    path = Path(path)
-    if not path.exists():
-        return {}
-    raw = path.read_bytes()
-    end = raw.rfind(b"\n") + 1
-    if end < len(raw):
-        with open(path, "r+b") as fh:
-            fh.truncate(end)
-            fh.flush()
-            os.fsync(fh.fileno())
     out = {}
-    for n, line in enumerate(raw[:end].splitlines(), 1):
-        if not line.strip():
-            continue
+    for n, line in complete_lines(path):
         try:
             rec = json.loads(line)
         except json.JSONDecodeError:

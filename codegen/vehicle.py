@@ -10,13 +10,11 @@ warnings on the loaded :class:`Vehicle`.
 
 from __future__ import annotations
 
-import hashlib
 import math
-import tomllib
 from dataclasses import dataclass, field
-from pathlib import Path
 
 from .errors import InputError
+from .fsutil import read_toml
 from .errors import finite_number as _number
 from .errors import suggest_key as _suggest
 
@@ -192,13 +190,5 @@ def parse_vehicle(data: dict, source_sha256: str = "") -> Vehicle:
 
 def load_vehicle(path) -> Vehicle:
     """Read and validate a vehicle file. Raises InputError on any fault."""
-    path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except OSError as exc:
-        raise InputError("vehicle file", str(path), f"cannot be read: {exc.strerror}") from None
-    try:
-        data = tomllib.loads(raw.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise InputError("vehicle file", str(path), f"is not valid TOML: {exc}") from None
-    return parse_vehicle(data, hashlib.sha256(raw).hexdigest())
+    data, digest = read_toml(path, "vehicle file")
+    return parse_vehicle(data, digest)
