@@ -217,24 +217,35 @@ class DescentProblem:
             z[1:] == z[:-1] - P["adt"] * sig,
         ]
         # Lossless convexification of rho1 <= |T| <= rho2.
+        # The other cones below are written as cones (cp.SOC) rather than as
+        # norm and square atoms: an atom adds an epigraph variable and a
+        # linear row to the canonical program, which every solver then
+        # carries (about 50 of each per atom at N = 50). The thrust cone
+        # keeps its norm atom: written as a cone it left the native solver in
+        # single precision without a solved demo state (0 of 32 against 28
+        # of 32; double precision solved both alike).
         cons += [cp.norm(u, 2, axis=0) <= sig]
         zk = z[:-1]
-        cons += [P["p_lo"] - cp.multiply(P["mu_lo"], zk)
-                 + cp.square(cp.multiply(P["s_lo"], zk) - P["c_lo"]) <= sig]
+        # p_lo - mu_lo z + (s_lo z - c_lo)^2 <= sigma, i.e. a^2 <= w with
+        # a = s_lo z - c_lo, w = sigma - p_lo + mu_lo z, as the rotated cone
+        # || (2a, w - 1) || <= w + 1.
+        a_lo = cp.multiply(P["s_lo"], zk) - P["c_lo"]
+        w_lo = sig - P["p_lo"] + cp.multiply(P["mu_lo"], zk)
+        cons += [cp.SOC(w_lo + 1.0, cp.vstack([2.0 * a_lo, w_lo - 1.0]), axis=0)]
         cons += [sig <= P["p_hi"] - cp.multiply(P["mu_hi"], zk)]
         # Mass corridor at nodes 1..N; dry mass at touchdown.
         cons += [z[1:] >= P["zlo"], z[1:] <= P["zhi"], z[n] >= c.z_dry]
         # Pointing (linear in u), speed and glide slope.
         if c.cos_pointing > -1.0:
             cons += [u[2, :] >= c.cos_pointing * sig]
-        cons += [cp.norm(v[:, 1:n], 2, axis=0) <= c.speed_max]
+        cons += [cp.SOC(np.full(n - 1, c.speed_max), v[:, 1:n], axis=0)]
         if c.tan_glide_slope > 0.0:
             # Apex of the approach cone: the target when the landing point is
             # fixed; the actual landing point when it is free (the terrain the
             # cone protects is where the vehicle lands).
             apex = P["target"] if self.kind == "fuel" else r[:, n]
             rel = r[:, :n] - cp.reshape(apex, (3, 1), order="F")
-            cons += [c.tan_glide_slope * cp.norm(rel[:2, :], 2, axis=0) <= rel[2, :]]
+            cons += [cp.SOC(rel[2, :], c.tan_glide_slope * rel[:2, :], axis=0)]
         # Touchdown: at rest, on the target's altitude.
         cons += [v[:, n] == 0, r[2, n] == P["target"][2]]
         miss = cp.norm(r[:2, n] - P["target"][:2], 2)

@@ -2,7 +2,7 @@
  * primal-dual interior-point solver for one fixed second-order cone program
  *
  *     minimise    c'x + d
- *     subject to  A x = b,   G x + s = h,   s in K = R+^400 x SOC(q1) x ... (199 SOCs)
+ *     subject to  A x = b,   G x + s = h,   s in K = R+^251 x SOC(q1) x ... (199 SOCs)
  *
  * whose data (c, d, A, b, G, h) are affine in a parameter vector. Method:
  * homogeneous self-dual embedding, Nesterov-Todd scaling, Mehrotra
@@ -32,25 +32,25 @@
 typedef double pdg_real;
 
 #define PDG_SOCP_NPARAM 414
-#define PDG_SOCP_NVAR 756
+#define PDG_SOCP_NVAR 607
 #define PDG_SOCP_NEQ 363
-#define PDG_SOCP_NCON 1096
-#define PDG_SOCP_NNONNEG 400
+#define PDG_SOCP_NCON 947
+#define PDG_SOCP_NNONNEG 251
 #define PDG_SOCP_NSOC 199
-#define PDG_SOCP_NKKT 2215
-#define PDG_SOCP_KKT_NNZ 5718
-#define PDG_SOCP_L_NNZ 8821
-#define PDG_SOCP_NDATA 4825
+#define PDG_SOCP_NKKT 1917
+#define PDG_SOCP_KKT_NNZ 5172
+#define PDG_SOCP_L_NNZ 8373
+#define PDG_SOCP_NDATA 4279
 #define PDG_SOCP_MAX_ITER_CAP 200
 
 /* Offsets of the problem data inside pdg_socp_work.data:
  * c (NVAR), d (1), b (NEQ), h (NCON), values of A (CSC), values of G (CSC). */
 #define PDG_SOCP_OFF_C 0
-#define PDG_SOCP_OFF_D 756
-#define PDG_SOCP_OFF_B 757
-#define PDG_SOCP_OFF_H 1120
-#define PDG_SOCP_OFF_A 2216
-#define PDG_SOCP_OFF_G 3429
+#define PDG_SOCP_OFF_D 607
+#define PDG_SOCP_OFF_B 608
+#define PDG_SOCP_OFF_H 971
+#define PDG_SOCP_OFF_A 1918
+#define PDG_SOCP_OFF_G 3131
 
 enum pdg_socp_status {
     PDG_SOCP_SOLVED = 0,      /* optimal to the tolerances below */
@@ -82,24 +82,24 @@ typedef struct {
     /* solution (after a solve) or iterate (during one) */
     pdg_real x[PDG_SOCP_NVAR];
     pdg_real y[363];       /* multipliers of A x = b */
-    pdg_real z[1096];       /* multipliers of G x + s = h (in K) */
-    pdg_real s[1096];       /* slacks (in K) */
+    pdg_real z[947];       /* multipliers of G x + s = h (in K) */
+    pdg_real s[947];       /* slacks (in K) */
     pdg_real tau, kappa;
     /* Nesterov-Todd scaling: w (nonneg rows) / normalised w (SOC rows), eta per SOC */
-    pdg_real lambda[1096];
-    pdg_real ntw[1096];
+    pdg_real lambda[947];
+    pdg_real ntw[947];
     pdg_real eta[199];
     /* KKT matrix (permuted upper CSC values) and its LDL' factor */
     pdg_real kkt[PDG_SOCP_KKT_NNZ];
-    pdg_real lx[8821];   /* L by columns (pattern l_ptr, l_row) */
-    pdg_real lr[8821];   /* the same values by rows (pattern r_ptr, r_col) */
+    pdg_real lx[8373];   /* L by columns (pattern l_ptr, l_row) */
+    pdg_real lr[8373];   /* the same values by rows (pattern r_ptr, r_col) */
     pdg_real dg[PDG_SOCP_NKKT];
     pdg_real dinv[PDG_SOCP_NKKT];
     pdg_real scat[PDG_SOCP_NKKT];
     int lfill[PDG_SOCP_NKKT];
     int r_ptr[PDG_SOCP_NKKT + 1];   /* row-wise pattern of L, built per solve */
-    int r_col[8821];
-    int r_pos[8821];           /* position in lx of each row-wise entry */
+    int r_col[8373];
+    int r_pos[8373];           /* position in lx of each row-wise entry */
     /* right-hand sides, solutions, refinement scratch */
     pdg_real rhs[PDG_SOCP_NKKT];
     pdg_real rhs2[PDG_SOCP_NKKT];
@@ -110,21 +110,21 @@ typedef struct {
     /* residuals and directions */
     pdg_real rx[PDG_SOCP_NVAR];
     pdg_real ry[363];
-    pdg_real rz[1096];
+    pdg_real rz[947];
     pdg_real dx[PDG_SOCP_NVAR];
     pdg_real dy[363];
-    pdg_real dz[1096];
-    pdg_real ds[1096];
-    pdg_real dsa[1096];
-    pdg_real dza[1096];
-    pdg_real t1[1096];
-    pdg_real t2[1096];
+    pdg_real dz[947];
+    pdg_real ds[947];
+    pdg_real dsa[947];
+    pdg_real dza[947];
+    pdg_real t1[947];
+    pdg_real t2[947];
     pdg_real dtau, dkappa;
     /* the iterate at the start of the current iteration (for a retry) */
     pdg_real xb[PDG_SOCP_NVAR];
     pdg_real yb[363];
-    pdg_real zb[1096];
-    pdg_real sb[1096];
+    pdg_real zb[947];
+    pdg_real sb[947];
     pdg_real taub, kappab;
     pdg_real data_norm;         /* largest |entry| of c, b, h */
     pdg_real reg;               /* static regularisation in use (raised after a breakdown) */
