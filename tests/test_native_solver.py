@@ -23,7 +23,7 @@ from codegen.native import DEFAULTS, describe, real_literal, render  # noqa: E40
 from codegen.native.cbuild import NativeSolver, compile_shared  # noqa: E402
 from codegen.problem import DescentProblem, time_of_flight_bracket  # noqa: E402
 
-SOLVED, INFEASIBLE, UNBOUNDED, MAX_ITER, NUMERICAL = range(5)
+SOLVED, INFEASIBLE, UNBOUNDED, MAX_ITER, NUMERICAL, SOLVED_REDUCED = range(6)
 CLARABEL_STATUS = {"Solved": SOLVED, "PrimalInfeasible": INFEASIBLE, "DualInfeasible": UNBOUNDED}
 OBJ_TOL = 1e-6          # issue 4 target, double precision
 
@@ -367,6 +367,28 @@ def test_descent_n50_nominal_agrees_with_clarabel(demo_vehicle, tmp_path_factory
     assert expect == SOLVED and res["status"] == SOLVED
     assert rel_err(res["objective"], ref_obj) <= OBJ_TOL
     assert res["iterations"] <= 30
+
+
+def test_reduced_tolerances_are_the_fallback_and_only_that(demo_vehicle, descent20):
+    """Full tolerances out of reach (1e-15, below double's rounding on these
+    residuals): the solve ends on a breakdown or the iteration limit, and
+    returns SOLVED_REDUCED with an objective that meets the reduced gap
+    against Clarabel. With the reduced ones out of reach too it must not
+    claim a solution at all."""
+    dp, prog, solver = descent20
+    params = flat_parameters(dp, dp.values([1500, 0, 1500], [-50, 0, -40], 1900, 40.0))
+    ref_status, ref_obj = clarabel_solve(prog.evaluate(params), prog.nonneg, prog.soc)
+    assert ref_status == "Solved"
+    unreachable = dict(tol_feas=1e-15, tol_gap_abs=1e-15, tol_gap_rel=1e-15, max_iter=40)
+    res = solver.solve(params, settings=solver.settings(**unreachable))
+    assert res["status"] == SOLVED_REDUCED, res
+    assert res["pres"] <= DEFAULTS["double"]["tol_feas_reduced"]
+    assert rel_err(res["objective"], ref_obj) <= 10 * DEFAULTS["double"]["tol_gap_reduced"]
+    res = solver.solve(params, settings=solver.settings(
+        **unreachable, tol_feas_reduced=1e-15, tol_gap_reduced=1e-15))
+    assert res["status"] in (MAX_ITER, NUMERICAL), res
+    # and a reachable solve still says SOLVED, not the fallback
+    assert solver.solve(params)["status"] == SOLVED
 
 
 def test_two_workspaces_interleaved_are_independent(demo_vehicle, descent20):
