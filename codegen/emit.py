@@ -107,8 +107,9 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         "backend": backend, "precision": precision, "s": dp.scaling, "k": dp.constants,
         "mass_floor_fraction": MASS_FLOOR_FRACTION,
         "grid_points": tofsearch.GRID_POINTS, "grid_refinements": tofsearch.GRID_REFINEMENTS,
-        "grid_max": (tofsearch.GRID_POINTS - 1) * 2 ** tofsearch.GRID_REFINEMENTS + 1,
+        "grid_max": tofsearch.grid_max(),
         "golden_max_steps": tofsearch.GOLDEN_MAX_STEPS, "inv_phi": tofsearch.INV_PHI,
+        "retry_budget": tofsearch.RETRY_BUDGET, "retry_shift": tofsearch.RETRY_SHIFT,
         "tof_tolerance": tofsearch.TOLERANCE_S, "layout": dp.parameter_layout,
         "nparam": sum(size for _, _, size in dp.parameter_layout),
         "default_max_iter": DEFAULT_MAX_ITER, "max_iter_cap": MAX_ITER_CAP,
@@ -128,7 +129,6 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
                + 4 * ctx["grid_max"])
     ws_bytes = out.backend_bytes + 8 * doubles + 4 * 7
     plan_bytes = 4 + 8 * 4 + 4 * 4 + 8 * ((n + 1) * 8 + n * 7)
-    grid_max = ctx["grid_max"]
     ctx.update({
         "mid_position": mid(env_.position_min_m, env_.position_max_m),
         "mid_velocity": mid(env_.velocity_min_mps, env_.velocity_max_mps),
@@ -136,7 +136,7 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         "print_every": max(1, n // 10),
         "backend_header": out.backend_header, "backend_fields": out.backend_fields,
         "workspace_bytes": ws_bytes, "plan_bytes": plan_bytes,
-        "max_solves": grid_max + 2 + tofsearch.GOLDEN_MAX_STEPS,
+        "max_solves": tofsearch.max_evaluations(),
         "sizes": {"n": int(prog.n), "p": int(prog.p), "m": int(prog.m), "nonneg": int(prog.nonneg),
                   "soc": len(prog.soc)},
         "vehicle_rows": [(k, c_literal(getattr(vehicle, k)) if k != "name" else vehicle.name)

@@ -175,8 +175,15 @@ class ReferenceSolver:
             lo = max(lo, 1e-3 * hi)
 
             def evaluate(t):
+                # Only a proven infeasible status steers the search as
+                # infeasible; numerical trouble or an iteration limit says
+                # nothing about t (tofsearch's rule for failures).
                 tr = run(kind, t)
-                return (tr.objective if tr.status == OPTIMAL else math.inf), tr
+                if tr.status == OPTIMAL and math.isfinite(tr.objective):
+                    return tofsearch.SOLVED, tr.objective, tr
+                if tr.status == INFEASIBLE:
+                    return tofsearch.INFEASIBLE, math.inf, tr
+                return tofsearch.FAILED, math.nan, tr
 
             _, _, tr, _ = tofsearch.search(evaluate, lo, hi)
             return tr

@@ -9,7 +9,6 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from codegen import tofsearch
 from codegen.canonical import extract, flat_parameters
 from codegen.problem import KINDS, DescentProblem, time_of_flight_bracket
 from codegen.reference import ReferenceSolver
@@ -228,17 +227,3 @@ def test_nan_state_refused_before_solve(demo_vehicle, monkeypatch):
     tr = rs.solve(*DEMO_STATE, time_of_flight_s=-3.0)
     assert tr.status == BAD_INPUT and "time_of_flight_s" in tr.message
     assert called == []
-
-
-def test_search_finds_a_narrow_feasible_window():
-    # The grid-then-golden search must not step past a narrow feasible window
-    # (common practice: golden section alone assumes unimodality everywhere).
-    def f(t):
-        return ((t - 41.3) ** 2 if 40.0 <= t <= 42.0 else math.inf), t
-    t, cost, payload, count = tofsearch.search(f, 0.0, 100.0)
-    assert t is not None and abs(t - 41.3) < 0.05 and count < 200
-
-
-def test_search_reports_nothing_feasible():
-    t, cost, payload, count = tofsearch.search(lambda t: (math.inf, t), 1.0, 2.0)
-    assert t is None and math.isinf(cost)
