@@ -40,7 +40,7 @@ import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from . import __version__
+from . import __version__, tofsearch
 from .emit import c_literal, environment, read_manifest, verify_tree
 from .errors import InputError
 
@@ -690,7 +690,10 @@ def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, camp
               f"`{prefix}_settings.max_iterations`, per solve"),
              ("tof_tolerance_s (default)", opts.get("tof_tolerance_s"),
               "time-of-flight search stops when its bracket is shorter"),
-             ("time-of-flight search", "grid of 9, up to 3 refinements, then golden section (at most 40 steps)",
+             ("time-of-flight search",
+              f"grid of {tofsearch.GRID_POINTS}, up to {tofsearch.GRID_REFINEMENTS} refinements, "
+              f"then golden section (at most {tofsearch.GOLDEN_MAX_STEPS} steps); a failed solve "
+              f"is retried once nearby (at most {tofsearch.RETRY_BUDGET} retries)",
               "bracket of Acikmese & Ploen (2007) from the current state")]
     sec.append({"title": "Horizon and settings", "blocks": [
         _text(f"N = {n} intervals ({n + 1} nodes), zero-order hold on thrust. "
