@@ -64,7 +64,7 @@ typedef struct {
     double accel_slack_mps2[50];   /**< sigma >= |u|; equal at a lossless optimum */
 } pdg_plan;
 
-/** Caller-owned workspace (about 574460 bytes; see README.md). */
+/** Caller-owned workspace (about 597424 bytes; see README.md). */
 typedef struct {
     pdg_backend_work backend;
     double params[PDG_NPARAM];
@@ -98,7 +98,8 @@ void pdg_settings_default(pdg_settings *settings);
  * flight > 0 or exactly 0 for a search, settings in range); on failure the
  * function returns PDG_BAD_INPUT and leaves `plan` untouched. When
  * the time of flight is 0 it is searched over the bracket of Acikmese &
- * Ploen (2007) by a grid then golden section; each trial is one solve.
+ * Ploen (2007) by a grid then golden section; each trial is one solve, and
+ * a failed one is retried once at a nearby time (at most 4 retries).
  * Returns plan->status. `settings` may be NULL for the defaults.
  */
 pdg_status pdg_plan_descent(pdg_workspace *work,

@@ -56,7 +56,7 @@ typedef unsigned short idx_t;
 #define REG_RAISE R(100.0)
 #define REG_RAISE_CAP R(10000.0)
 /* Refinement stops once the KKT residual is below this times mu. */
-#define REFINE_MU_FACTOR R(1e-06)
+#define REFINE_MU_FACTOR R(0.01)
 #define R(v) ((real)(v))
 #define SQRT(v) sqrt(v)
 #define FABS(v) fabs(v)
@@ -2083,6 +2083,8 @@ void pdg_socp_settings_default(pdg_socp_settings *s)
     s->tol_gap_rel = 1e-08;
     s->tol_feas = 1e-08;
     s->tol_infeas = 1e-08;
+    s->tol_feas_reduced = 1e-06;
+    s->tol_gap_reduced = 1e-07;
     s->max_iter = 100;
     s->static_reg = 1e-08;
     s->dynamic_reg_eps = 1e-13;
@@ -2629,15 +2631,58 @@ static void save_iterate(pdg_socp_work *w)
     w->backup_valid = 1;
 }
 
-/* ... and go back to it with a hundredfold static regularisation when the
- * iteration broke down (the refinement then carries more of the accuracy).
- * Returns 1 if the caller should redo the iteration, 0 if out of room. */
-static int recover(pdg_socp_work *w, const pdg_socp_settings *st)
+/* Keep the iterate just measured as the reduced-accuracy fallback if it
+ * meets the reduced tolerances better than the one kept so far (merit: the
+ * largest ratio of a residual or the gap to its tolerance). */
+static void keep_reduced(pdg_socp_work *w, real merit)
 {
     int i;
-    if (!w->backup_valid || !(w->reg * REG_RAISE <= st->static_reg * REG_RAISE_CAP)) {
-        return 0;
+    if (w->have_reduced && !(merit < w->reduced_merit)) {
+        return;
     }
+    for (i = 0; i < NVAR; ++i) {
+        w->xr[i] = w->x[i];
+    }
+    for (i = 0; i < NEQ; ++i) {
+        w->yr[i] = w->y[i];
+    }
+    for (i = 0; i < NCON; ++i) {
+        w->zr[i] = w->z[i];
+        w->sr[i] = w->s[i];
+    }
+    w->taur = w->tau;
+    w->kappar = w->kappa;
+    w->pres_r = w->pres;
+    w->dres_r = w->dres;
+    w->gap_r = w->gap;
+    w->reduced_merit = merit;
+    w->have_reduced = 1;
+}
+
+/* Back to the kept fallback: SOLVED_REDUCED, with its residuals. */
+static void restore_reduced(pdg_socp_work *w)
+{
+    int i;
+    for (i = 0; i < NVAR; ++i) {
+        w->x[i] = w->xr[i];
+    }
+    for (i = 0; i < NEQ; ++i) {
+        w->y[i] = w->yr[i];
+    }
+    for (i = 0; i < NCON; ++i) {
+        w->z[i] = w->zr[i];
+        w->s[i] = w->sr[i];
+    }
+    w->tau = w->taur;
+    w->kappa = w->kappar;
+    w->pres = w->pres_r;
+    w->dres = w->dres_r;
+    w->gap = w->gap_r;
+}
+
+static void restore_iterate(pdg_socp_work *w)
+{
+    int i;
     for (i = 0; i < NVAR; ++i) {
         w->x[i] = w->xb[i];
     }
@@ -2650,6 +2695,17 @@ static int recover(pdg_socp_work *w, const pdg_socp_settings *st)
     }
     w->tau = w->taub;
     w->kappa = w->kappab;
+}
+
+/* ... and go back to it with a hundredfold static regularisation when the
+ * iteration broke down (the refinement then carries more of the accuracy).
+ * Returns 1 if the caller should redo the iteration, 0 if out of room. */
+static int recover(pdg_socp_work *w, const pdg_socp_settings *st)
+{
+    if (!w->backup_valid || !(w->reg * REG_RAISE <= st->static_reg * REG_RAISE_CAP)) {
+        return 0;
+    }
+    restore_iterate(w);
     w->reg *= REG_RAISE;
     w->recoveries += 1;
     kkt_assemble_data(w);
@@ -2831,6 +2887,19 @@ static int finish(pdg_socp_work *w, int status, real by_hz, real cx)
     return status;
 }
 
+/* A breakdown (causes 1 to 3) before the full tolerances were reached:
+ * the best iterate that met the reduced ones, as SOLVED_REDUCED, if there
+ * was one; else NUMERICAL. */
+static int breakdown(pdg_socp_work *w, int cause, real by_hz, real cx)
+{
+    w->numerical_cause = cause;
+    if (w->have_reduced) {
+        restore_reduced(w);
+        return finish(w, PDG_SOCP_SOLVED_REDUCED, by_hz, cx);
+    }
+    return finish(w, PDG_SOCP_NUMERICAL, by_hz, cx);
+}
+
 /* ---- the solver -------------------------------------------------------------- */
 int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
                             const pdg_socp_settings *s_in)
@@ -2888,6 +2957,8 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
     w->reg = st->static_reg;
     w->refine_floor = R(0);
     w->backup_valid = 0;
+    w->have_reduced = 0;
+    w->reduced_merit = R(HUGE_VAL);
     w->recoveries = 0;
     row_pattern(w);
     kkt_assemble_data(w);
@@ -2934,8 +3005,7 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
             if (recover(w, st)) {
                 continue;
             }
-            w->numerical_cause = 2;
-            return finish(w, PDG_SOCP_NUMERICAL, by_hz, cx);
+            return breakdown(w, 2, by_hz, cx);
         }
         /* residuals of the embedding */
         kkt_offdiag_mul(w, w->x, w->y, w->z, w->rx, w->ry, w->rz);
@@ -2980,6 +3050,21 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         if (w->pres <= st->tol_feas && w->dres <= st->tol_feas
             && sz / (w->tau * w->tau) <= thr && w->gap <= thr) {
             return finish(w, PDG_SOCP_SOLVED, by_hz, cx);
+        }
+        {
+            real thr_r = st->tol_gap_reduced * (FABS(pobj) < FABS(dobj) ? FABS(pobj) : FABS(dobj));
+            if (thr_r < st->tol_gap_reduced) {
+                thr_r = st->tol_gap_reduced;
+            }
+            if (w->pres <= st->tol_feas_reduced && w->dres <= st->tol_feas_reduced
+                && sz / (w->tau * w->tau) <= thr_r && w->gap <= thr_r) {
+                real merit = w->pres / st->tol_feas_reduced;
+                const real md = w->dres / st->tol_feas_reduced;
+                const real mg = w->gap / thr_r;
+                merit = md > merit ? md : merit;
+                merit = mg > merit ? mg : merit;
+                keep_reduced(w, merit);
+            }
         }
         /* certificates (Farkas): primal infeasibility, then dual */
         if (by_hz < R(0)) {
@@ -3032,8 +3117,7 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
             if (recover(w, st)) {
                 continue;
             }
-            w->numerical_cause = 1;
-            return finish(w, PDG_SOCP_NUMERICAL, by_hz, cx);
+            return breakdown(w, 1, by_hz, cx);
         }
         ldl_backsolve2(w, w->u1, w->u0);
         kkt_refine(w, st, w->rhs, w->u1, 0, 32);
@@ -3084,8 +3168,7 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
             if (recover(w, st)) {
                 continue;
             }
-            w->numerical_cause = 3;
-            return finish(w, PDG_SOCP_NUMERICAL, by_hz, cx);
+            return breakdown(w, 3, by_hz, cx);
         }
         for (i = 0; i < NVAR; ++i) {
             w->x[i] += alpha * w->dx[i];
@@ -3099,6 +3182,11 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         }
         w->tau += alpha * w->dtau;
         w->kappa += alpha * w->dkappa;
+    }
+    /* out of iterations: the reduced-accuracy fallback, if any */
+    if (w->have_reduced) {
+        restore_reduced(w);
+        return finish(w, PDG_SOCP_SOLVED_REDUCED, by_hz, cx);
     }
     return finish(w, PDG_SOCP_MAX_ITER, by_hz, cx);
 }

@@ -57,8 +57,11 @@ enum pdg_socp_status {
     PDG_SOCP_INFEASIBLE = 1,  /* primal infeasible; y, z hold the certificate */
     PDG_SOCP_UNBOUNDED = 2,   /* dual infeasible; x, s hold the certificate */
     PDG_SOCP_MAX_ITER = 3,    /* iteration limit reached (x, y, z, s: last iterate / tau) */
-    PDG_SOCP_NUMERICAL = 4    /* breakdown even after raising the regularisation
+    PDG_SOCP_NUMERICAL = 4,   /* breakdown even after raising the regularisation
                                           (see numerical_cause) */
+    PDG_SOCP_SOLVED_REDUCED = 5 /* optimal to the reduced tolerances only: the full
+                                            ones were not reached before a breakdown or the
+                                            iteration limit (numerical_cause says which) */
 };
 
 typedef struct {
@@ -66,13 +69,15 @@ typedef struct {
     pdg_real tol_gap_rel;       /* default 1e-08 */
     pdg_real tol_feas;          /* default 1e-08 */
     pdg_real tol_infeas;        /* default 1e-08 */
+    pdg_real tol_feas_reduced;  /* default 1e-06: SOLVED_REDUCED residuals ... */
+    pdg_real tol_gap_reduced;   /* default 1e-07: ... and gap (absolute and relative) */
     int max_iter;                        /* default 100; clamped to [0, MAX_ITER_CAP] */
     pdg_real static_reg;        /* default 1e-08: +eps on the x block, -eps on y, z */
     pdg_real dynamic_reg_eps;   /* default 1e-13: pivots of wrong sign or below this ... */
     pdg_real dynamic_reg_delta; /* default 2e-07: ... are replaced by +-delta */
     int refine_steps;                    /* default 5: iterative refinement steps per solve */
     pdg_real refine_tol;        /* default 1e-12: stop refining when the KKT residual is below
-                                            this times (1 + max |c|, |b|, |h|), or below 1e-6 mu */
+                                            this times (1 + max |c|, |b|, |h|), or below 0.01 mu */
     pdg_real step_fraction;     /* default 0.99: fraction of the step to the cone boundary */
 } pdg_socp_settings;
 
@@ -126,6 +131,12 @@ typedef struct {
     pdg_real zb[947];
     pdg_real sb[947];
     pdg_real taub, kappab;
+    /* the best iterate that met the reduced tolerances (SOLVED_REDUCED) */
+    pdg_real xr[PDG_SOCP_NVAR];
+    pdg_real yr[363];
+    pdg_real zr[947];
+    pdg_real sr[947];
+    pdg_real taur, kappar, reduced_merit, pres_r, dres_r, gap_r;
     pdg_real data_norm;         /* largest |entry| of c, b, h */
     pdg_real reg;               /* static regularisation in use (raised after a breakdown) */
     pdg_real refine_floor;      /* refinement stops below this residual (a fraction of mu) */
@@ -139,6 +150,7 @@ typedef struct {
     int refine_count;                    /* refinement solves over the whole solve */
     int recoveries;                      /* iterations redone with more regularisation */
     int backup_valid;
+    int have_reduced;                    /* xr..kappar hold the reduced-accuracy fallback */
     int numerical_cause;                 /* 0 none; 1 factorisation, 2 iterate left the cone,
                                             3 step too short, 4 not-a-number residuals,
                                             5 params == NULL */

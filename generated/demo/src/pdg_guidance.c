@@ -45,7 +45,9 @@ static const double MASS_FLOW_PER_N = 0.00044335487520779493;
 #define GRID_REFINEMENTS 3
 #define GRID_MAX 65
 #define GOLDEN_MAX_STEPS 40
+#define RETRY_BUDGET 4
 static const double INV_PHI = 0.6180339887498949;
+static const double RETRY_SHIFT = 0.125;
 
 /* Offsets of the parameters in the flat parameter vector. */
 #define P_R0 0
@@ -165,8 +167,9 @@ static void compute_params(const pdg_input *in, double tof_s, double *p)
     }
 }
 
-/* One solve at time of flight tof_s; returns its cost (INFINITY unless optimal)
- * and keeps the best answer so far in the workspace. */
+/* One solve at time of flight tof_s; returns its cost when optimal, INFINITY
+ * when proven infeasible, NAN when it failed (iteration limit, numerical
+ * trouble: unknown), and keeps the best answer so far in the workspace. */
 static double solve_at(pdg_workspace *w, const pdg_input *in, double tof_s,
                        const pdg_settings *s)
 {
@@ -184,27 +187,61 @@ static double solve_at(pdg_workspace *w, const pdg_input *in, double tof_s,
     }
     w->last_status = status;
     w->last_iterations = iterations;
-    cost = (status == PDG_OPTIMAL && isfinite(objective)) ? objective : INFINITY;
-    if (cost < w->best_cost) {
-        w->best_cost = cost;
-        w->best_tof = tof_s;
-        w->best_iterations = iterations;
-        w->have_best = 1;
-        pdg_backend_solution(&w->backend, w->best_r, w->best_v, w->best_z, w->best_u,
-                                    w->best_sigma);
+    if (status == PDG_OPTIMAL && isfinite(objective)) {
+        cost = objective;
+        if (cost < w->best_cost) {
+            w->best_cost = cost;
+            w->best_tof = tof_s;
+            w->best_iterations = iterations;
+            w->have_best = 1;
+            pdg_backend_solution(&w->backend, w->best_r, w->best_v, w->best_z,
+                                        w->best_u, w->best_sigma);
+        }
+    } else if (status == PDG_INFEASIBLE) {
+        cost = INFINITY;
+    } else {
+        /* NAN is never compared: isnan() sorts it out first. */
+        cost = NAN;
     }
     return cost;
 }
 
+/* One probe of the search (mirror of probe in tofsearch.search): a solve,
+ * retried once at a time shifted by RETRY_SHIFT * tolerance when it failed,
+ * while the search's RETRY_BUDGET lasts; NAN when still failed (unknown). */
+static double probe(pdg_workspace *w, const pdg_input *in, double tof_s,
+                    double t_lo, double t_hi, int *retries, const pdg_settings *s)
+{
+    double value = solve_at(w, in, tof_s, s);
+    const double shift = RETRY_SHIFT * s->tof_tolerance_s;
+    double t_retry = tof_s + shift;
+    if (t_retry > t_hi) {
+        t_retry = tof_s - shift;
+    }
+    if (isnan(value) && *retries < RETRY_BUDGET && t_retry >= t_lo) {
+        *retries += 1;
+        value = solve_at(w, in, t_retry, s);
+    }
+    return value;
+}
+
+/* Grid ranking: an unknown probe is never the best. */
+static double rank(double value)
+{
+    return isnan(value) ? INFINITY : value;
+}
+
 /* Grid, then golden section (mirror of tofsearch.search). Bounded:
- * at most GRID_MAX + 2 + GOLDEN_MAX_STEPS solves. Scratch lives in the
- * workspace, not on the stack. */
+ * at most GRID_MAX + 2 + GOLDEN_MAX_STEPS probes and RETRY_BUDGET retries,
+ * 111 solves. Scratch lives in the workspace, not on the stack. */
 static void search_tof(pdg_workspace *w, const pdg_input *in, double t_lo,
                        double t_hi, const pdg_settings *s)
 {
     double *times = w->search_t;
     double *costs = w->search_c;
     int count = GRID_POINTS;
+    int retries = 0;
+    int keep_left;
     int i;
     int r;
     int step;
@@ -220,7 +257,7 @@ static void search_tof(pdg_workspace *w, const pdg_input *in, double t_lo,
         times[i] = t_lo + (t_hi - t_lo) * (double)i / (double)(GRID_POINTS - 1);
     }
     for (i = 0; i < GRID_POINTS; i++) {
-        costs[i] = solve_at(w, in, times[i], s);
+        costs[i] = rank(probe(w, in, times[i], t_lo, t_hi, &retries, s));
     }
     for (r = 0; r < GRID_REFINEMENTS; r++) {
         if (w->have_best) {
@@ -233,7 +270,7 @@ static void search_tof(pdg_workspace *w, const pdg_input *in, double t_lo,
             int j;
             for (j = 0; j < count - 1; j++) {
                 mid_t[j] = (times[j] + times[j + 1]) / 2.0;
-                mid_c[j] = solve_at(w, in, mid_t[j], s);
+                mid_c[j] = rank(probe(w, in, mid_t[j], t_lo, t_hi, &retries, s));
             }
             for (j = count - 1; j >= 0; j--) {
                 times[2 * j] = times[j];
@@ -259,38 +296,33 @@ static void search_tof(pdg_workspace *w, const pdg_input *in, double t_lo,
     b = times[best_i < count - 1 ? best_i + 1 : count - 1];
     c = b - INV_PHI * (b - a);
     d = a + INV_PHI * (b - a);
-    fc = solve_at(w, in, c, s);
-    fd = solve_at(w, in, d, s);
+    fc = probe(w, in, c, t_lo, t_hi, &retries, s);
+    fd = probe(w, in, d, t_lo, t_hi, &retries, s);
     for (step = 0; step < GOLDEN_MAX_STEPS; step++) {
         if (b - a <= s->tof_tolerance_s) {
             break;
         }
-        if (isinf(fc) && isinf(fd)) {
-            if (w->best_tof <= c) {
-                b = d;
-                d = c;
-                fd = fc;
-                c = b - INV_PHI * (b - a);
-                fc = solve_at(w, in, c, s);
-            } else {
-                a = c;
-                c = d;
-                fc = fd;
-                d = a + INV_PHI * (b - a);
-                fd = solve_at(w, in, d, s);
-            }
-        } else if (fc < fd) {
+        if (isnan(fc) && !isnan(fd)) {
+            /* c unknown: d separates, the best point so far decides. */
+            keep_left = w->best_tof < d;
+        } else if (isnan(fd) || (isinf(fc) && isinf(fd))) {
+            /* d unknown (c known or not), or both infeasible: c separates. */
+            keep_left = w->best_tof <= c;
+        } else {
+            keep_left = fc < fd;
+        }
+        if (keep_left) {
             b = d;
             d = c;
             fd = fc;
             c = b - INV_PHI * (b - a);
-            fc = solve_at(w, in, c, s);
+            fc = probe(w, in, c, t_lo, t_hi, &retries, s);
         } else {
             a = c;
             c = d;
             fc = fd;
             d = a + INV_PHI * (b - a);
-            fd = solve_at(w, in, d, s);
+            fd = probe(w, in, d, t_lo, t_hi, &retries, s);
         }
     }
 }
