@@ -391,6 +391,29 @@ def test_reduced_tolerances_are_the_fallback_and_only_that(demo_vehicle, descent
     assert solver.solve(params)["status"] == SOLVED
 
 
+@pytest.mark.slow
+def test_edge_of_feasibility_ends_by_the_progress_guard(demo_vehicle, tmp_path_factory):
+    """A state whose time-of-flight search homes in on the edge of
+    feasibility (pdgc check --seed 11, case 815): at 69.5647 s Clarabel
+    proves it infeasible, but barely; our iterates send tau and kappa to
+    zero together and then drifted for the whole budget of 100 iterations.
+    The progress guard must end the solve early and honestly: no optimal
+    verdict, and NUMERICAL only with cause 6."""
+    dp = DescentProblem(demo_vehicle, 50)
+    prog = extract(dp)
+    solver = build(prog, tmp_path_factory, "edge50")
+    state = ([2526.5739049946305, 147.51396259034053, 1278.0100342335086],
+             [-79.18664032257904, 3.9027188715661234, -85.56448641214811], 1861.0334759225814)
+    params = flat_parameters(dp, dp.values(*state, 69.5647))
+    ref_status, _ = clarabel_solve(prog.evaluate(params), prog.nonneg, prog.soc)
+    assert ref_status == "PrimalInfeasible"
+    res = solver.solve(params)
+    assert res["status"] in (INFEASIBLE, NUMERICAL), res
+    if res["status"] == NUMERICAL:
+        assert res["numerical_cause"] == 6, res
+    assert res["iterations"] < 70, res           # was 100 (the iteration limit)
+
+
 def test_two_workspaces_interleaved_are_independent(demo_vehicle, descent20):
     dp, prog, solver = descent20
     pa = flat_parameters(dp, dp.values([1500, 0, 1500], [-50, 0, -40], 1900, 40.0))

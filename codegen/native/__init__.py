@@ -318,9 +318,9 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
              + 2 * n + 2 * p + 7 * m                 # rx, ry, rz, dx, dy, dz, ds, dsa, dza, t1, t2
              + 5                                     # dtau, dkappa, data_norm, reg, refine_floor
              + n + p + 2 * m + 2                     # xb, yb, zb, sb, taub, kappab
-             + n + p + 2 * m + 6                     # xr, yr, zr, sr, taur .. gap_r
+             + n + p + 2 * m + 7                     # xr, yr, zr, sr, taur .. gap_r, best_merit
              + 5)                                    # objective, pres, dres, gap, mu
-    ints = dim + (dim + 1) + 2 * a["nnz_L"] + 8       # lfill, r_ptr, r_col, r_pos, counters
+    ints = dim + (dim + 1) + 2 * a["nnz_L"] + 9       # lfill, r_ptr, r_col, r_pos, counters
     return {
         "precision": precision, "prefix": prefix,
         "n_params": prog.n_params, "n": prog.n, "p": prog.p, "m": prog.m,

@@ -151,9 +151,12 @@ typedef struct {
     int recoveries;                      /* iterations redone with more regularisation */
     int backup_valid;
     int have_reduced;                    /* xr..kappar hold the reduced-accuracy fallback */
+    pdg_real best_merit;        /* progress guard: closest approach to a verdict ... */
+    int stall;                           /* ... and iterations since it last halved */
     int numerical_cause;                 /* 0 none; 1 factorisation, 2 iterate left the cone,
                                             3 step too short, 4 not-a-number residuals,
-                                            5 params == NULL */
+                                            5 params == NULL, 6 no progress (no verdict came
+                                            twice as close in 20 iterations) */
 } pdg_socp_work;
 
 /* Fill *s with the defaults listed above. */
