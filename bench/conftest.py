@@ -7,7 +7,7 @@ it for their rows. At the end the side-by-side table is printed and written
 to bench/results/latest.{md,json} with growth.png beside them.
 
 Knobs (environment): PDGC_BENCH_HORIZONS=10,20,50,100, PDGC_BENCH_BACKENDS,
-PDGC_BENCH_QOCO_MAX=20, PDGC_BENCH_INSTANCES=8, PDGC_BENCH_C_BUDGET_S,
+PDGC_BENCH_QOCO_MAX=50, PDGC_BENCH_INSTANCES=8, PDGC_BENCH_C_BUDGET_S,
 PDGC_BENCH_CALLGRIND=0 to skip valgrind.
 """
 
