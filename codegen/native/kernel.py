@@ -14,8 +14,10 @@ The factor step of row k (pattern of row k of L: j_1 < j_2 < ...):
     y_j  = K(j, k) - sum_{i in row k, i < j, L(j,i) != 0} L(j, i) y_i   (i ascending)
     L(k, j) = y_j / d_j,   d_k = K(k, k) - sum_j L(k, j) y_j            (j ascending)
 which is what the generic scatter loop computes, in the same order of
-additions; with the forward sweeps of the two right-hand sides, the
-regularisation of the pivot and the row-wise copy lr, as ldl_factor does.
+additions; with the forward sweeps of the two right-hand sides and the
+regularisation of the pivot, as the generic rows do.  The row-wise copy lr
+is not written for the kernel's rows: their forward sweeps (forward_stage)
+read lx at positions known at generation time.
 """
 
 from __future__ import annotations
@@ -176,7 +178,7 @@ def _c_factor(ops) -> str:
         for a, (init, upd, jr, qk, tr) in enumerate(entries):
             first = f"kk[{init}]" if init is not None else "R(0)"
             out.extend(_stmt(f"yv[{a}]", first, [f"lx[{q}] * yv[{ia}]" for q, ia in upd]))
-            out.append(f"    l = yv[{a}] * dinv[{jr}]; d -= l * yv[{a}]; lx[{qk}] = l; lr[{tr}] = l;")
+            out.append(f"    l = yv[{a}] * dinv[{jr}]; d -= l * yv[{a}]; lx[{qk}] = l;")
             out.append(f"    f1 -= l * y1[{jr}]; f2 -= l * y2[{jr}];")
         sg = "R(1)" if sgn > 0 else "R(-1)"
         out.append(f"    y1[{c}] = f1; y2[{c}] = f2;")
@@ -189,11 +191,12 @@ def _c_factor(ops) -> str:
 
 def _c_forward(ops) -> str:
     """Forward sweep t = L^{-1} b(perm) of one stage, from the factor program
-    (row k: the entries of row k of L, in the lr order)."""
+    (row k: the entries of row k of L, columns ascending, read from lx: the
+    kernel knows where each sits, so the row-wise copy lr is not needed)."""
     out = []
     for c, _sgn, _kd, entries in ops:
         out.extend(_stmt(f"t[{c}]", f"b[perm[k0 + {c}]]",
-                         [f"lr[{tr}] * t[{jr}]" for (_i, _u, jr, _q, tr) in entries]))
+                         [f"lx[{qk}] * t[{jr}]" for (_i, _u, jr, qk, _t) in entries]))
     return "\n".join(out)
 
 
@@ -225,7 +228,6 @@ def context(kern: StageKernel | None) -> dict:
         "sk_first": kern.first, "sk_count": kern.count,
         "sk_k0": kern.rows[0], "sk_p": kern.rows[1],
         "sk_l0": kern.lx[0], "sk_lq": kern.lx[1],
-        "sk_r0": kern.lr[0], "sk_rq": kern.lr[1],
         "sk_q0": kern.kkt[0], "sk_qr": kern.kkt[1],
         "sk_factor": _c_factor(kern.factor_ops),
         "sk_forward": _c_forward(kern.factor_ops),
