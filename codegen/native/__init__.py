@@ -5,9 +5,12 @@ of ``{prefix}_socp.h`` and ``{prefix}_socp.c``: a primal-dual interior-point
 method (homogeneous self-dual embedding, Nesterov-Todd scaling, Mehrotra
 predictor-corrector) over a sparse LDL' of the KKT system whose ordering and
 symbolic factorisation are done here, in Python, at generation time
-(:mod:`codegen.native.symbolic`). The C only runs loops over the ``const``
+(:mod:`codegen.native.symbolic`). The C runs loops over the ``const``
 index arrays emitted here; its size grows with the number of nonzeros only
-through those arrays, never through code lines.
+through those arrays. For a time-staged program with a stage-periodic
+ordering, one interior stage's factorisation and sweeps are also emitted as
+straight-line code (:mod:`codegen.native.kernel`), called once per stage:
+a constant amount of code, independent of the horizon.
 
 The C API (PREFIX = prefix.upper()) is described in the generated header:
 ``{prefix}_socp_settings_default``, ``{prefix}_socp_solve``, the workspace

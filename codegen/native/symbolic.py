@@ -19,6 +19,8 @@ Orderings tried (the smaller nnz(L) wins; ties go to the first):
    exact degrees, lazy heap, ties broken by index), and
  - reverse Cuthill-McKee (scipy.sparse.csgraph), a banded ordering that
    suits the time-stage structure.
+"periodic" (given the stage of every node; codegen.native.periodic) orders
+stage by stage with one local order, for the straight-line stage kernel.
 "staged" instead constrains minimum fill to eliminate the cone rows first,
 then x, then y: pivots never need the tiny static regularisation of the x
 block to carry large Schur-complement entries, which keeps single precision
