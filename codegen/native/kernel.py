@@ -135,10 +135,12 @@ def find_kernel(stage_of_pos: np.ndarray, Kp, Ki, Lp, Li, Rp, Rj, sign,
         bprogs.append(_backward_program(k0, P, Lp, Li))
         bbases.append((k0, int(Lp[k0])))
     first, count = _longest_run(fprogs, fbases)
-    if count < min_stages:
+    # a stage without entries of L (no coupling at all) gets no kernel: the
+    # emitted functions would have unused pointers
+    if count < min_stages or not any(e for *_, e in fprogs[first]):
         return None
     bfirst, bcount = _longest_run(bprogs, bbases)
-    if bcount < min_stages:
+    if bcount < min_stages or not any(e for _, e in bprogs[bfirst]):
         bwd = {"first": 0, "count": 0, "rows": (0, P), "lx": (0, 0), "ops": ()}
     else:
         b0 = bbases[bfirst]
