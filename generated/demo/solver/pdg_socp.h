@@ -39,7 +39,7 @@ typedef double pdg_real;
 #define PDG_SOCP_NSOC 199
 #define PDG_SOCP_NKKT 1917
 #define PDG_SOCP_KKT_NNZ 5172
-#define PDG_SOCP_L_NNZ 8373
+#define PDG_SOCP_L_NNZ 8497
 #define PDG_SOCP_NDATA 4279
 #define PDG_SOCP_MAX_ITER_CAP 200
 
@@ -96,15 +96,15 @@ typedef struct {
     pdg_real eta[199];
     /* KKT matrix (permuted upper CSC values) and its LDL' factor */
     pdg_real kkt[PDG_SOCP_KKT_NNZ];
-    pdg_real lx[8373];   /* L by columns (pattern l_ptr, l_row) */
-    pdg_real lr[8373];   /* the same values by rows (pattern r_ptr, r_col) */
+    pdg_real lx[8497];   /* L by columns (pattern l_ptr, l_row) */
+    pdg_real lr[8497];   /* the same values by rows (pattern r_ptr, r_col) */
     pdg_real dg[PDG_SOCP_NKKT];
     pdg_real dinv[PDG_SOCP_NKKT];
     pdg_real scat[PDG_SOCP_NKKT];
     int lfill[PDG_SOCP_NKKT];
     int r_ptr[PDG_SOCP_NKKT + 1];   /* row-wise pattern of L, built per solve */
-    int r_col[8373];
-    int r_pos[8373];           /* position in lx of each row-wise entry */
+    int r_col[8497];
+    int r_pos[8497];           /* position in lx of each row-wise entry */
     /* right-hand sides, solutions, refinement scratch */
     pdg_real rhs[PDG_SOCP_NKKT];
     pdg_real rhs2[PDG_SOCP_NKKT];
