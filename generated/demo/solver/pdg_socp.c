@@ -3979,20 +3979,27 @@ static int factor_kkt(pdg_socp_work *w, const pdg_socp_settings *st, int init)
     return -1;
 }
 
-/* Keep the iterate at the start of an iteration ... */
-static void save_iterate(pdg_socp_work *w)
+/* One iterate's vectors: (dx, dy, dz, ds) := (sx, sy, sz, ss). */
+static void copy_iterate(real *dx, real *dy, real *dz, real *ds, const real *sx,
+                         const real *sy, const real *sz, const real *ss)
 {
     int i;
     for (i = 0; i < NVAR; ++i) {
-        w->xb[i] = w->x[i];
+        dx[i] = sx[i];
     }
     for (i = 0; i < NEQ; ++i) {
-        w->yb[i] = w->y[i];
+        dy[i] = sy[i];
     }
     for (i = 0; i < NCON; ++i) {
-        w->zb[i] = w->z[i];
-        w->sb[i] = w->s[i];
+        dz[i] = sz[i];
+        ds[i] = ss[i];
     }
+}
+
+/* Keep the iterate at the start of an iteration ... */
+static void save_iterate(pdg_socp_work *w)
+{
+    copy_iterate(w->xb, w->yb, w->zb, w->sb, w->x, w->y, w->z, w->s);
     w->taub = w->tau;
     w->kappab = w->kappa;
     w->backup_valid = 1;
@@ -4003,20 +4010,10 @@ static void save_iterate(pdg_socp_work *w)
  * largest ratio of a residual or the gap to its tolerance). */
 static void keep_reduced(pdg_socp_work *w, real merit)
 {
-    int i;
     if (w->have_reduced && !(merit < w->reduced_merit)) {
         return;
     }
-    for (i = 0; i < NVAR; ++i) {
-        w->xr[i] = w->x[i];
-    }
-    for (i = 0; i < NEQ; ++i) {
-        w->yr[i] = w->y[i];
-    }
-    for (i = 0; i < NCON; ++i) {
-        w->zr[i] = w->z[i];
-        w->sr[i] = w->s[i];
-    }
+    copy_iterate(w->xr, w->yr, w->zr, w->sr, w->x, w->y, w->z, w->s);
     w->taur = w->tau;
     w->kappar = w->kappa;
     w->pres_r = w->pres;
@@ -4029,17 +4026,7 @@ static void keep_reduced(pdg_socp_work *w, real merit)
 /* Back to the kept fallback: SOLVED_REDUCED, with its residuals. */
 static void restore_reduced(pdg_socp_work *w)
 {
-    int i;
-    for (i = 0; i < NVAR; ++i) {
-        w->x[i] = w->xr[i];
-    }
-    for (i = 0; i < NEQ; ++i) {
-        w->y[i] = w->yr[i];
-    }
-    for (i = 0; i < NCON; ++i) {
-        w->z[i] = w->zr[i];
-        w->s[i] = w->sr[i];
-    }
+    copy_iterate(w->x, w->y, w->z, w->s, w->xr, w->yr, w->zr, w->sr);
     w->tau = w->taur;
     w->kappa = w->kappar;
     w->pres = w->pres_r;
@@ -4049,17 +4036,7 @@ static void restore_reduced(pdg_socp_work *w)
 
 static void restore_iterate(pdg_socp_work *w)
 {
-    int i;
-    for (i = 0; i < NVAR; ++i) {
-        w->x[i] = w->xb[i];
-    }
-    for (i = 0; i < NEQ; ++i) {
-        w->y[i] = w->yb[i];
-    }
-    for (i = 0; i < NCON; ++i) {
-        w->z[i] = w->zb[i];
-        w->s[i] = w->sb[i];
-    }
+    copy_iterate(w->x, w->y, w->z, w->s, w->xb, w->yb, w->zb, w->sb);
     w->tau = w->taub;
     w->kappa = w->kappab;
 }
