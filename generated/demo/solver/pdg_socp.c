@@ -2114,14 +2114,23 @@ void pdg_socp_settings_default(pdg_socp_settings *s)
 }
 
 /* ---- small vector helpers -------------------------------------------------- */
+/* Four partial sums: at -O2 the compiler may not reorder a floating-point
+ * reduction, so one accumulator costs a loop test per product (the dot
+ * products were 7% of a solve's instructions). */
 static real dot(const real *a, const real *b, int len)
 {
-    real acc = R(0);
+    real s0 = R(0), s1 = R(0), s2 = R(0), s3 = R(0);
     int i;
-    for (i = 0; i < len; ++i) {
-        acc += a[i] * b[i];
+    for (i = 0; i + 3 < len; i += 4) {
+        s0 += a[i] * b[i];
+        s1 += a[i + 1] * b[i + 1];
+        s2 += a[i + 2] * b[i + 2];
+        s3 += a[i + 3] * b[i + 3];
     }
-    return acc;
+    for (; i < len; ++i) {
+        s0 += a[i] * b[i];
+    }
+    return (s0 + s1) + (s2 + s3);
 }
 
 static real norm2(const real *a, int len)
