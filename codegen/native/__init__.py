@@ -342,7 +342,7 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
     nsoc = a["nsoc"]
     # the members of {prefix}_socp_work, as declared in socp.h.j2
     reals = (ctx["ndata"] + n + p + 2 * m + 2         # data, x, y, z, s, tau, kappa
-             + 2 * m + nsoc                          # lambda, ntw, eta
+             + 2 * m + 5 * nsoc                      # lambda, ntw, eta, det_s .. root_z
              + sym.nnz_kkt + 2 * a["nnz_L"] + 3 * dim  # kkt, lx, lr, dg, dinv, scat
              + 6 * dim                               # rhs, rhs2, u0, u1, res, corr
              + 2 * n + 2 * p + 7 * m                 # rx, ry, rz, dx, dy, dz, ds, dsa, dza, t1, t2
@@ -350,7 +350,7 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
              + n + p + 2 * m + 2                     # xb, yb, zb, sb, taub, kappab
              + n + p + 2 * m + 7                     # xr, yr, zr, sr, taur .. gap_r, best_merit
              + 5)                                    # objective, pres, dres, gap, mu
-    ints = dim + (dim + 1) + 2 * a["nnz_L"] + 9       # lfill, r_ptr, r_col, r_pos, counters
+    ints = dim + (dim + 1) + 2 * a["nnz_L"] + 10      # lfill, r_ptr, r_col, r_pos, counters
     return {
         "precision": precision, "prefix": prefix,
         "n_params": prog.n_params, "n": prog.n, "p": prog.p, "m": prog.m,

@@ -64,6 +64,9 @@ typedef unsigned short idx_t;
  * 15 cut short an unbounded test instance whose certificate sat still for
  * a dozen iterations and then converged (tests/test_native_solver.py). */
 #define STALL_ITERS 20
+/* Safety factor on the static-regularisation estimate of a KKT residual
+ * (rounding in the factorisation comes on top of reg |x|). */
+#define REFINE_SKIP_MARGIN R(100)
 /* On a breakdown the static regularisation is multiplied by REG_RAISE, up
  * to REG_RAISE_CAP times the setting. */
 #define REG_RAISE R(100.0)
@@ -2232,6 +2235,10 @@ static int nt_scaling(pdg_socp_work *w)
         }
         sn = SQRT(sdet);
         zn = SQRT(zdet);
+        w->det_s[c] = sdet;
+        w->root_s[c] = sn;
+        w->det_z[c] = zdet;
+        w->root_z[c] = zn;
         szb = R(0);
         for (k = 0; k < q; ++k) {
             szb += (s[k] / sn) * (z[k] / zn);
@@ -2359,7 +2366,11 @@ static void cone_div(const real *u, const real *v, real *out)
  * maps d/nu to rho, rho0 = u'Jd / nu^2, rho1 = (d1 - f u1)/nu with
  * f = (d0 + rho0 nu... ) (Vandenberghe 2010, step-length computation);
  * e + a rho stays in the cone while a (||rho1|| - rho0) <= 1. */
-static real cone_step(const real *u, const real *d, real cap)
+/* Largest a <= cap with u + a d in the cone; udet[c] and uroot[c] are
+ * u0^2 - |u1|^2 of each second-order block of u and its square root, as
+ * nt_scaling computed them for this iterate. */
+static real cone_step(const real *u, const real *d, real cap, const real *udet,
+                      const real *uroot)
 {
     real a = cap;
     int i, c, k;
@@ -2371,14 +2382,12 @@ static real cone_step(const real *u, const real *d, real cap)
     for (c = 0; c < NSOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
-        real n1 = R(0), ujd = u[o] * d[o], nu2, nu, r0, fac, r1 = R(0), t;
+        const real nu2 = udet[c];
+        const real nu = uroot[c];
+        real ujd = u[o] * d[o], r0, fac, r1 = R(0), t;
         for (k = 1; k < q; ++k) {
-            n1 += u[o + k] * u[o + k];
             ujd -= u[o + k] * d[o + k];
         }
-        n1 = SQRT(n1);
-        nu2 = (u[o] - n1) * (u[o] + n1);
-        nu = SQRT(nu2);
         r0 = ujd / nu2;
         fac = (d[o] + r0 * nu) / (u[o] + nu);
         for (k = 1; k < q; ++k) {
@@ -3981,8 +3990,12 @@ static int factor_kkt(pdg_socp_work *w, const pdg_socp_settings *st, int init)
             kkt_assemble_data(w);
         }
         kkt_assemble_scaling(w, init);
-        if (ldl_factor(w, st) == 0) {
-            return 0;
+        {
+            const int dyn = w->dynamic_reg_count;
+            if (ldl_factor(w, st) == 0) {
+                w->factor_static_only = w->dynamic_reg_count == dyn;
+                return 0;
+            }
         }
     }
     return -1;
@@ -4105,6 +4118,14 @@ static void kkt_refine(pdg_socp_work *w, const pdg_socp_settings *st,
     const real bn = w->data_norm;
     real prev = R(HUGE_VAL);
     int it, k;
+    /* No pivot was replaced, so the factor is that of K0 + E, E the static
+     * regularisation (+-reg on the diagonal), and the residual is E x plus
+     * rounding: when REFINE_SKIP_MARGIN times reg |x| is already below the
+     * floor, the residual need not be formed. */
+    if (!init && max_refine > 0 && w->factor_static_only
+        && REFINE_SKIP_MARGIN * w->reg * norm_inf(x, NKKT) <= w->refine_floor) {
+        return;
+    }
     for (it = 0; it < max_refine && it < st->refine_steps && it < 32; ++it) {
         const real rn = kkt_residual(w, b, x, init);
         if (!(rn > st->refine_tol * (R(1) + bn)) || !(rn > w->refine_floor)
@@ -4190,8 +4211,8 @@ static void slack_direction(pdg_socp_work *w)
 
 static real max_step(const pdg_socp_work *w)
 {
-    real a = cone_step(w->s, w->ds, R(1e30));
-    a = cone_step(w->z, w->dz, a);
+    real a = cone_step(w->s, w->ds, R(1e30), w->det_s, w->root_s);
+    a = cone_step(w->z, w->dz, a, w->det_z, w->root_z);
     if (w->dtau < R(0) && -w->tau / w->dtau < a) {
         a = -w->tau / w->dtau;
     }

@@ -94,6 +94,10 @@ typedef struct {
     pdg_real lambda[947];
     pdg_real ntw[947];
     pdg_real eta[199];
+    pdg_real det_s[199];  /* s0^2 - |s1|^2 per cone, and its root (nt_scaling) */
+    pdg_real root_s[199];
+    pdg_real det_z[199];  /* the same for z */
+    pdg_real root_z[199];
     /* KKT matrix (permuted upper CSC values) and its LDL' factor */
     pdg_real kkt[PDG_SOCP_KKT_NNZ];
     pdg_real lx[8497];   /* L by columns (pattern l_ptr, l_row) */
@@ -150,6 +154,7 @@ typedef struct {
     int refine_count;                    /* refinement solves over the whole solve */
     int recoveries;                      /* iterations redone with more regularisation */
     int backup_valid;
+    int factor_static_only;              /* the last factorisation replaced no pivot */
     int have_reduced;                    /* xr..kappar hold the reduced-accuracy fallback */
     pdg_real best_merit;        /* progress guard: closest approach to a verdict ... */
     int stall;                           /* ... and iterations since it last halved */
