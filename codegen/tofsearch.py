@@ -82,8 +82,8 @@ def grid_max() -> int:
 
 def max_evaluations() -> int:
     """Worst-case number of evaluations of one search."""
-    grid = GRID_POINTS + sum((GRID_POINTS - 1) * 2 ** r for r in range(GRID_REFINEMENTS))
-    return grid + 2 + GOLDEN_MAX_STEPS + RETRY_BUDGET
+    # every point of the finest grid is evaluated once at most
+    return grid_max() + 2 + GOLDEN_MAX_STEPS + RETRY_BUDGET
 
 
 def search(evaluate, t_lo: float, t_hi: float, tolerance_s: float = TOLERANCE_S):

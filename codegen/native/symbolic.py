@@ -258,6 +258,11 @@ def factor_madds(Lp: np.ndarray) -> int:
 PERIODIC_MAX_COST = 1.3
 
 
+def _signs(perm: np.ndarray, n: int) -> np.ndarray:
+    """Expected pivot sign at each permuted position: + for x, - for y and z."""
+    return np.where(perm < n, 1, -1).astype(np.int64)
+
+
 def analyse(n: int, p: int, m: int, A_indptr, A_indices, G_indptr, G_indices,
             nonneg: int, soc, ordering: str = "auto", stages=None) -> KKTSymbolic:
     """Order, permute and symbolically factor the KKT pattern.  ``stages``
@@ -307,8 +312,7 @@ def analyse(n: int, p: int, m: int, A_indptr, A_indices, G_indptr, G_indices,
     if "periodic" in results:
         per = results["periodic"]
         perm, Kp, Ki, Lp, Li, Rp, Rj = per[2], per[4], per[5], per[7], per[8], per[9], per[10]
-        sign = np.where(perm < n, 1, -1).astype(np.int64)
-        kern = find_kernel(stages[perm], Kp, Ki, Lp, Li, Rp, Rj, sign)
+        kern = find_kernel(stages[perm], Kp, Ki, Lp, Li, Rp, Rj, _signs(perm, n))
         if ordering == "periodic" or (
                 kern is not None
                 and factor_madds(Lp) <= PERIODIC_MAX_COST * factor_madds(best[7])):
@@ -316,8 +320,7 @@ def analyse(n: int, p: int, m: int, A_indptr, A_indices, G_indptr, G_indices,
         else:
             kern = None
     _, name, perm, iperm, Kp, Ki, pos, Lp, Li, Rp, Rj = best
-    sign = np.where(perm < n, 1, -1).astype(np.int64)
-    return KKTSymbolic(dim=dim, perm=perm, iperm=iperm, sign=sign, Kp=Kp, Ki=Ki,
+    return KKTSymbolic(dim=dim, perm=perm, iperm=iperm, sign=_signs(perm, n), Kp=Kp, Ki=Ki,
                        pos_xdiag=pos["xdiag"], pos_ydiag=pos["ydiag"], pos_zdiag=pos["zdiag"],
                        pos_A=pos["A"], pos_G=pos["G"], pos_zoff=pos["zoff"],
                        Lp=Lp, Li=Li, Rp=Rp, Rj=Rj, ordering=name, nnz_L_tried=tried,

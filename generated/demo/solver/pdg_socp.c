@@ -4262,17 +4262,43 @@ static int finish(pdg_socp_work *w, int status, real by_hz, real cx)
     return status;
 }
 
-/* A breakdown (causes 1 to 3, or 6: no progress) before the full tolerances were reached:
- * the best iterate that met the reduced ones, as SOLVED_REDUCED, if there
- * was one; else NUMERICAL. */
-static int breakdown(pdg_socp_work *w, int cause, real by_hz, real cx)
+/* The end of a solve that did not reach the full tolerances: the best
+ * iterate that met the reduced ones, as SOLVED_REDUCED, if there was one;
+ * else status (NUMERICAL or MAX_ITER). */
+static int fall_back(pdg_socp_work *w, int status, real by_hz, real cx)
 {
-    w->numerical_cause = cause;
     if (w->have_reduced) {
         restore_reduced(w);
         return finish(w, PDG_SOCP_SOLVED_REDUCED, by_hz, cx);
     }
-    return finish(w, PDG_SOCP_NUMERICAL, by_hz, cx);
+    return finish(w, status, by_hz, cx);
+}
+
+/* A breakdown (causes 1 to 3, or CAUSE_NO_PROGRESS) before the full
+ * tolerances were reached. */
+static int breakdown(pdg_socp_work *w, int cause, real by_hz, real cx)
+{
+    w->numerical_cause = cause;
+    return fall_back(w, PDG_SOCP_NUMERICAL, by_hz, cx);
+}
+
+/* Gap tolerance: rel times the smaller |objective|, at least abs. */
+static real gap_threshold(real pobj, real dobj, real rel, real abs_tol)
+{
+    const real thr = rel * (FABS(pobj) < FABS(dobj) ? FABS(pobj) : FABS(dobj));
+    return thr < abs_tol ? abs_tol : thr;
+}
+
+/* Distance of the iterate last measured to the optimality verdict at
+ * tolerances (tol_feas, thr) on the residuals and the gap: the largest
+ * ratio of a measure to its tolerance (1 = met). */
+static real optimality_merit(const pdg_socp_work *w, real tol_feas, real thr)
+{
+    real merit = w->pres / tol_feas;
+    const real md = w->dres / tol_feas;
+    const real mg = w->gap / thr;
+    merit = md > merit ? md : merit;
+    return mg > merit ? mg : merit;
 }
 
 /* ---- the solver -------------------------------------------------------------- */
@@ -4413,10 +4439,7 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         pobj = cx / w->tau;
         dobj = -by_hz / w->tau;
         w->gap = FABS(pobj - dobj);
-        thr = st->tol_gap_rel * (FABS(pobj) < FABS(dobj) ? FABS(pobj) : FABS(dobj));
-        if (thr < st->tol_gap_abs) {
-            thr = st->tol_gap_abs;
-        }
+        thr = gap_threshold(pobj, dobj, st->tol_gap_rel, st->tol_gap_abs);
         if (!(mu == mu) || !(w->pres == w->pres) || !(w->dres == w->dres)) {
             if (recover(w, st)) {
                 continue;
@@ -4429,29 +4452,18 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
             return finish(w, PDG_SOCP_SOLVED, by_hz, cx);
         }
         {
-            real thr_r = st->tol_gap_reduced * (FABS(pobj) < FABS(dobj) ? FABS(pobj) : FABS(dobj));
-            if (thr_r < st->tol_gap_reduced) {
-                thr_r = st->tol_gap_reduced;
-            }
+            const real thr_r = gap_threshold(pobj, dobj, st->tol_gap_reduced,
+                                             st->tol_gap_reduced);
             if (w->pres <= st->tol_feas_reduced && w->dres <= st->tol_feas_reduced
                 && sz / (w->tau * w->tau) <= thr_r && w->gap <= thr_r) {
-                real mr = w->pres / st->tol_feas_reduced;
-                const real md = w->dres / st->tol_feas_reduced;
-                const real mg = w->gap / thr_r;
-                mr = md > mr ? md : mr;
-                mr = mg > mr ? mg : mr;
-                keep_reduced(w, mr);
+                keep_reduced(w, optimality_merit(w, st->tol_feas_reduced, thr_r));
             }
         }
         /* distance to the optimality verdict (1 = met), for the progress
          * guard below */
-        merit = w->pres / st->tol_feas;
+        merit = optimality_merit(w, st->tol_feas, thr);
         {
-            const real md = w->dres / st->tol_feas;
-            const real mg = w->gap / thr;
             const real ms = sz / (w->tau * w->tau) / thr;
-            merit = md > merit ? md : merit;
-            merit = mg > merit ? mg : merit;
             merit = ms > merit ? ms : merit;
         }
         /* certificates (Farkas): primal infeasibility, then dual */
@@ -4493,7 +4505,7 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         } else {
             w->stall += 1;
             if (w->stall >= STALL_ITERS) {
-                return breakdown(w, 6, by_hz, cx);
+                return breakdown(w, PDG_SOCP_CAUSE_NO_PROGRESS, by_hz, cx);
             }
         }
         if (it == max_iter) {
@@ -4591,9 +4603,5 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         w->kappa += alpha * w->dkappa;
     }
     /* out of iterations: the reduced-accuracy fallback, if any */
-    if (w->have_reduced) {
-        restore_reduced(w);
-        return finish(w, PDG_SOCP_SOLVED_REDUCED, by_hz, cx);
-    }
-    return finish(w, PDG_SOCP_MAX_ITER, by_hz, cx);
+    return fall_back(w, PDG_SOCP_MAX_ITER, by_hz, cx);
 }

@@ -64,6 +64,9 @@ enum pdg_socp_status {
                                             iteration limit (numerical_cause says which) */
 };
 
+/* numerical_cause of a solve ended by the progress guard (see the workspace) */
+#define PDG_SOCP_CAUSE_NO_PROGRESS 6
+
 typedef struct {
     pdg_real tol_gap_abs;       /* default 1e-08 */
     pdg_real tol_gap_rel;       /* default 1e-08 */

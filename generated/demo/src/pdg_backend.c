@@ -38,12 +38,12 @@ int pdg_backend_solve(pdg_backend_work *bw, const double *params,
     bw->settings.max_iter = max_iterations;
     code = pdg_socp_solve(&bw->socp, bw->params, &bw->settings);
     *iterations = bw->socp.iterations;
-    if (code == PDG_SOCP_NUMERICAL && bw->socp.numerical_cause != 6) {
+    if (code == PDG_SOCP_NUMERICAL && bw->socp.numerical_cause != PDG_SOCP_CAUSE_NO_PROGRESS) {
         /* One retry with ten times the static regularisation: near the
          * optimum the factorisation can fail on a last-bit change of the
          * data (seen at N = 50 with pres stuck at 3e-8); a different
          * regularisation path then converges. Bounded: two solves at most.
-         * Not after cause 6 (no progress: a problem at the edge of
+         * Not after the progress guard (a problem at the edge of
          * feasibility, where the retry drifted just the same). */
         bw->settings.static_reg = bw->settings.static_reg * (pdg_real)10;
         code = pdg_socp_solve(&bw->socp, bw->params, &bw->settings);
