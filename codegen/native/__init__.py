@@ -343,7 +343,7 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
     # the members of {prefix}_socp_work, as declared in socp.h.j2
     reals = (ctx["ndata"] + n + p + 2 * m + 2         # data, x, y, z, s, tau, kappa
              + 2 * m + 5 * nsoc                      # lambda, ntw, eta, det_s .. root_z
-             + sym.nnz_kkt + 2 * a["nnz_L"] + 3 * dim  # kkt, lx, lr, dg, dinv, scat
+             + sym.nnz_kkt + a["nnz_L"] + 2 * dim     # kkt, lx, dinv, scat
              + 6 * dim                               # rhs, rhs2, u0, u1, res, corr
              + 2 * n + 2 * p + 7 * m                 # rx, ry, rz, dx, dy, dz, ds, dsa, dza, t1, t2
              + 5                                     # dtau, dkappa, data_norm, reg, refine_floor

@@ -4,8 +4,8 @@ interior stage of a stage-periodic KKT ordering (codegen.native.periodic).
 For each stage s the work of the up-looking LDL' (and of the two sweeps) is
 written down as a list of operations on absolute indices; subtracting the
 stage's base offsets (first row k0, first position of its columns in lx,
-of its rows in lr, of its columns in the KKT values) gives its *relative*
-program.  The stages whose relative programs are identical, and whose bases
+of its rows in the row-wise order of L, of its columns in the KKT values)
+gives its *relative* program.  The stages whose relative programs are identical, and whose bases
 advance by the same amounts, form the periodic range; the C emitted here
 runs that one program with the bases as arguments, and the generic loops
 do every other row.
@@ -15,9 +15,9 @@ The factor step of row k (pattern of row k of L: j_1 < j_2 < ...):
     L(k, j) = y_j / d_j,   d_k = K(k, k) - sum_j L(k, j) y_j            (j ascending)
 which is what the generic scatter loop computes, in the same order of
 additions; with the forward sweeps of the two right-hand sides and the
-regularisation of the pivot, as the generic rows do.  The row-wise copy lr
-is not written for the kernel's rows: their forward sweeps (forward_stage)
-read lx at positions known at generation time.
+regularisation of the pivot, as the generic rows do.  The forward sweeps of
+the kernel's rows (forward_stage) read lx at positions known at generation
+time.
 """
 
 from __future__ import annotations
@@ -33,7 +33,7 @@ class StageKernel:
     count: int          # number of stages in it (>= 2)
     rows: tuple         # (k0 of the first stage, P): rows per stage
     lx: tuple           # (base, Q) of lx (column-wise positions)
-    lr: tuple           # (base, Q) of lr (row-wise positions)
+    lr: tuple           # (base, Q) of the row-wise order of L (r_pos)
     kkt: tuple          # (base, R) of the KKT values
     factor_ops: list    # relative program of one stage (see _factor_program)
     bwd: dict           # backward sweep: {"first", "count", "rows", "lx", "ops"}
@@ -187,14 +187,14 @@ def _c_factor(ops) -> str:
         out.append(f"    if (pivot_fix(w, st, &d, {sg}) != 0) {{")
         out.append("        return -1;")
         out.append("    }")
-        out.append(f"    dg[{c}] = d; dinv[{c}] = R(1) / d;")
+        out.append(f"    dinv[{c}] = R(1) / d;")
     return "\n".join(out)
 
 
 def _c_forward(ops) -> str:
     """Forward sweep t = L^{-1} b(perm) of one stage, from the factor program
     (row k: the entries of row k of L, columns ascending, read from lx: the
-    kernel knows where each sits, so the row-wise copy lr is not needed)."""
+    kernel knows where each sits, so no row-wise pattern is read)."""
     out = []
     for c, _sgn, _kd, entries in ops:
         out.extend(_stmt(f"t[{c}]", f"b[perm[k0 + {c}]]",

@@ -2120,7 +2120,7 @@ void pdg_socp_settings_default(pdg_socp_settings *s)
 /* Four partial sums: at -O2 the compiler may not reorder a floating-point
  * reduction, so one accumulator costs a loop test per product (the dot
  * products were 7% of a solve's instructions). */
-static real dot(const real *a, const real *b, int len)
+static inline real dot(const real *a, const real *b, int len)
 {
     real s0 = R(0), s1 = R(0), s2 = R(0), s3 = R(0);
     int i;
@@ -2141,15 +2141,29 @@ static real norm2(const real *a, int len)
     return SQRT(dot(a, a, len));
 }
 
+/* Largest |entry|; entries that are not numbers are skipped (a comparison
+ * with one is false), so four running maxima give the same result as one. */
 static real norm_inf(const real *a, int len)
 {
-    real m = R(0);
+    real m0 = R(0), m1 = R(0), m2 = R(0), m3 = R(0);
     int i;
-    for (i = 0; i < len; ++i) {
-        const real v = FABS(a[i]);
-        m = v > m ? v : m;
+    for (i = 0; i + 3 < len; i += 4) {
+        const real v0 = FABS(a[i]);
+        const real v1 = FABS(a[i + 1]);
+        const real v2 = FABS(a[i + 2]);
+        const real v3 = FABS(a[i + 3]);
+        m0 = v0 > m0 ? v0 : m0;
+        m1 = v1 > m1 ? v1 : m1;
+        m2 = v2 > m2 ? v2 : m2;
+        m3 = v3 > m3 ? v3 : m3;
     }
-    return m;
+    for (; i < len; ++i) {
+        const real v = FABS(a[i]);
+        m0 = v > m0 ? v : m0;
+    }
+    m0 = m1 > m0 ? m1 : m0;
+    m2 = m3 > m2 ? m3 : m2;
+    return m2 > m0 ? m2 : m0;
 }
 
 /* ---- parameters to data ---------------------------------------------------- */
@@ -2266,10 +2280,27 @@ static int nt_scaling(pdg_socp_work *w)
     return 0;
 }
 
+/* One second-order block of out = W v (sg = 1, sc = eta) or of W^{-1} v
+ * (sg = -1, sc = 1/eta: W^{-1} = J Wbar J / eta flips the sign of the
+ * cross terms); wb is the block's normalised scaling point, out != v. */
+static inline void cone_w(const real *wb, real sc, real sg, const real *vv, real *out, int q)
+{
+    real w1v = R(0), f;
+    int k;
+    for (k = 1; k < q; ++k) {
+        w1v += wb[k] * vv[k];
+    }
+    out[0] = sc * (wb[0] * vv[0] + sg * w1v);
+    f = sg * vv[0] + w1v / (R(1) + wb[0]);
+    for (k = 1; k < q; ++k) {
+        out[k] = sc * (vv[k] + f * wb[k]);
+    }
+}
+
 /* out = W v (inverse = 0) or out = W^{-1} v (inverse = 1); out != v. */
 static void apply_w(const pdg_socp_work *w, const real *v, real *out, int inverse)
 {
-    int i, c, k;
+    int i, c;
     if (inverse) {
         for (i = 0; i < NLIN; ++i) {
             out[i] = v[i] / w->ntw[i];
@@ -2281,21 +2312,8 @@ static void apply_w(const pdg_socp_work *w, const real *v, real *out, int invers
     }
     for (c = 0; c < NSOC; ++c) {
         const int o = soc_start[c];
-        const int q = soc_size[c];
-        const real *wb = w->ntw + o;
-        const real *vv = v + o;
-        const real sg = inverse ? R(-1) : R(1);
-        const real sc = inverse ? R(1) / w->eta[c] : w->eta[c];
-        real w1v = R(0), f;
-        for (k = 1; k < q; ++k) {
-            w1v += wb[k] * vv[k];
-        }
-        /* W^{-1} = J Wbar J / eta: flip the sign of the cross terms */
-        out[o] = sc * (wb[0] * vv[0] + sg * w1v);
-        f = sg * vv[0] + w1v / (R(1) + wb[0]);
-        for (k = 1; k < q; ++k) {
-            out[o + k] = sc * (vv[k] + f * wb[k]);
-        }
+        cone_w(w->ntw + o, inverse ? R(1) / w->eta[c] : w->eta[c], inverse ? R(-1) : R(1),
+               v + o, out + o, soc_size[c]);
     }
 }
 
@@ -2319,45 +2337,67 @@ static void apply_w2(const pdg_socp_work *w, const real *v, real *out)
     }
 }
 
-/* out = u o v (Jordan product) */
-static void cone_prod(const real *u, const real *v, real *out)
+/* One second-order block of out = u o v (Jordan product), q entries. */
+static inline void block_prod(const real *u, const real *v, real *out, int q)
 {
-    int i, c, k;
-    for (i = 0; i < NLIN; ++i) {
-        out[i] = u[i] * v[i];
-    }
-    for (c = 0; c < NSOC; ++c) {
-        const int o = soc_start[c];
-        const int q = soc_size[c];
-        out[o] = dot(u + o, v + o, q);
-        for (k = 1; k < q; ++k) {
-            out[o + k] = u[o] * v[o + k] + v[o] * u[o + k];
-        }
+    int k;
+    out[0] = dot(u, v, q);
+    for (k = 1; k < q; ++k) {
+        out[k] = u[0] * v[k] + v[0] * u[k];
     }
 }
 
-/* out = u \ v: the solution of u o out = v (u in the interior) */
-static void cone_div(const real *u, const real *v, real *out)
+/* One second-order block of out = u \ v, the solution of u o out = v (u in
+ * the interior), q entries; out may be v. */
+static inline void block_div(const real *u, const real *v, real *out, int q)
 {
+    real n1 = R(0), uv = R(0), det, x0;
+    int k;
+    for (k = 1; k < q; ++k) {
+        n1 += u[k] * u[k];
+        uv += u[k] * v[k];
+    }
+    n1 = SQRT(n1);
+    det = (u[0] - n1) * (u[0] + n1);
+    x0 = (u[0] * v[0] - uv) / det;
+    out[0] = x0;
+    for (k = 1; k < q; ++k) {
+        out[k] = (v[k] - x0 * u[k]) / u[0];
+    }
+}
+
+/* The corrector's cone terms (Mehrotra 1992; Vandenberghe 2010, conelp):
+ * ds_comp = lambda o lambda + (W^{-1} ds_a) o (W dz_a) - smu e, then
+ * dsa := lambda \ ds_comp and t1 := W dsa; dza holds W dz_a on entry. One
+ * pass, block by block (t2 is scratch), with the arithmetic of the
+ * whole-vector steps apply_w, o, +, -, \ and apply_w in that order. */
+static void corrector_terms(pdg_socp_work *w, real smu)
+{
+    const real *lam = w->lambda;
+    real *dsa = w->dsa;
+    real *t1 = w->t1;
+    real *t2 = w->t2;
     int i, c, k;
     for (i = 0; i < NLIN; ++i) {
-        out[i] = v[i] / u[i];
+        const real wds = w->ds[i] / w->ntw[i];
+        real comp = lam[i] * lam[i];
+        comp += wds * w->dza[i];
+        comp -= smu;
+        dsa[i] = comp / lam[i];
+        t1[i] = dsa[i] * w->ntw[i];
     }
     for (c = 0; c < NSOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
-        real n1 = R(0), uv = R(0), det, x0;
-        for (k = 1; k < q; ++k) {
-            n1 += u[o + k] * u[o + k];
-            uv += u[o + k] * v[o + k];
+        cone_w(w->ntw + o, R(1) / w->eta[c], R(-1), w->ds + o, dsa + o, q);
+        block_prod(dsa + o, w->dza + o, t1 + o, q);
+        block_prod(lam + o, lam + o, t2 + o, q);
+        for (k = 0; k < q; ++k) {
+            t2[o + k] += t1[o + k];
         }
-        n1 = SQRT(n1);
-        det = (u[o] - n1) * (u[o] + n1);
-        x0 = (u[o] * v[o] - uv) / det;
-        out[o] = x0;
-        for (k = 1; k < q; ++k) {
-            out[o + k] = (v[o + k] - x0 * u[o + k]) / u[o];
-        }
+        t2[o] -= smu;
+        block_div(lam + o, t2 + o, dsa + o, q);
+        cone_w(w->ntw + o, w->eta[c], R(1), dsa + o, t1 + o, q);
     }
 }
 
@@ -2473,24 +2513,36 @@ static void kkt_assemble_scaling(pdg_socp_work *w, int init)
 {
     const real eps = w->reg;
     int i, c, a, b, k;
+    if (init) {
+        for (i = 0; i < NCON; ++i) {
+            w->kkt[kpos_zdiag[i]] = -R(1) - eps;
+        }
+        for (k = 0; k < ZOFF_NNZ; ++k) {
+            w->kkt[kpos_zoff[k]] = R(0);
+        }
+        return;
+    }
     for (i = 0; i < NLIN; ++i) {
-        const real w2 = init ? R(1) : w->ntw[i] * w->ntw[i];
-        w->kkt[kpos_zdiag[i]] = -w2 - eps;
+        w->kkt[kpos_zdiag[i]] = -(w->ntw[i] * w->ntw[i]) - eps;
     }
     k = 0;
     for (c = 0; c < NSOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
         const real *wb = w->ntw + o;
-        const real e2 = init ? R(0) : w->eta[c] * w->eta[c];
-        /* W'W = eta^2 (2 wbar wbar' - J); the identity when init */
-        for (a = 0; a < q; ++a) {
-            const real dgl = init ? R(1) : e2 * (R(2) * wb[a] * wb[a] + (a == 0 ? R(-1) : R(1)));
-            w->kkt[kpos_zdiag[o + a]] = -dgl - eps;
-            for (b = a + 1; b < q && k < ZOFF_NNZ; ++b) {
-                w->kkt[kpos_zoff[k]] = init ? R(0) : -e2 * R(2) * wb[a] * wb[b];
-                ++k;
+        const real e2 = w->eta[c] * w->eta[c];
+        /* W'W = eta^2 (2 wbar wbar' - J) */
+        w->kkt[kpos_zdiag[o]] = -(e2 * (R(2) * wb[0] * wb[0] + R(-1))) - eps;
+        for (b = 1; b < q; ++b) {
+            w->kkt[kpos_zoff[k + b - 1]] = -e2 * R(2) * wb[0] * wb[b];
+        }
+        k += q - 1;
+        for (a = 1; a < q; ++a) {
+            w->kkt[kpos_zdiag[o + a]] = -(e2 * (R(2) * wb[a] * wb[a] + R(1))) - eps;
+            for (b = a + 1; b < q; ++b) {
+                w->kkt[kpos_zoff[k + b - a - 1]] = -e2 * R(2) * wb[a] * wb[b];
             }
+            k += q - a - 1;
         }
     }
 }
@@ -2573,7 +2625,6 @@ static int factor_rows(pdg_socp_work *w, const pdg_socp_settings *st,
             lkj = yj * w->dinv[j];
             d -= lkj * yj;
             w->lx[pos] = lkj;
-            w->lr[t] = lkj;
             f1 -= lkj * y1[j];
             f2 -= lkj * y2[j];
         }
@@ -2582,14 +2633,13 @@ static int factor_rows(pdg_socp_work *w, const pdg_socp_settings *st,
         if (pivot_fix(w, st, &d, sgn) != 0) {
             return -1;
         }
-        w->dg[k] = d;
         w->dinv[k] = R(1) / d;
     }
     return 0;
 }
 
 /* Forward sweep t = L^{-1} b(perm) over rows k_begin..k_end-1, by rows (a
- * dot product with the values lr stored row-wise by the factorisation). */
+ * dot product with row k of L, read from lx through r_pos). */
 static void forward_rows(const pdg_socp_work *w, const real *b, real *t, int k_begin,
                          int k_end)
 {
@@ -2597,7 +2647,7 @@ static void forward_rows(const pdg_socp_work *w, const real *b, real *t, int k_b
     for (k = k_begin; k < k_end; ++k) {
         real acc = b[perm[k]];
         for (q = w->r_ptr[k]; q < w->r_ptr[k + 1]; ++q) {
-            acc -= w->lr[q] * t[w->r_col[q]];
+            acc -= w->lx[w->r_pos[q]] * t[w->r_col[q]];
         }
         t[k] = acc;
     }
@@ -2664,14 +2714,12 @@ static void backward_cols2(const pdg_socp_work *w, real *t, real *t2, real *x1,
 
 /* Factor rows k0..k0+SK_P-1 (one stage): L(k, j) = y_j / d_j with
  * y_j = K(j, k) - sum_i L(j, i) y_i, d_k = K(k, k) - sum_j L(k, j) y_j, and
- * the forward sweeps of rhs and rhs2 (as factor_rows; lr is not written for
- * these rows: forward_stage reads lx). */
+ * the forward sweeps of rhs and rhs2 (as factor_rows). */
 static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
                         int l0, int q0)
 {
     const real *kk = w->kkt + q0;
     real *lx = w->lx + l0;
-    real *dg = w->dg + k0;
     real *dinv = w->dinv + k0;
     real *y1 = w->res + k0;
     real *y2 = w->corr + k0;
@@ -2685,7 +2733,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[0] = d; dinv[0] = R(1) / d;
+    dinv[0] = R(1) / d;
     /* row 1 */
     d = kk[1];
     f1 = w->rhs[perm[k0 + 1]];
@@ -2694,7 +2742,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[1] = d; dinv[1] = R(1) / d;
+    dinv[1] = R(1) / d;
     /* row 2 */
     d = kk[2];
     f1 = w->rhs[perm[k0 + 2]];
@@ -2703,7 +2751,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[2] = d; dinv[2] = R(1) / d;
+    dinv[2] = R(1) / d;
     /* row 3 */
     d = kk[3];
     f1 = w->rhs[perm[k0 + 3]];
@@ -2712,7 +2760,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[3] = d; dinv[3] = R(1) / d;
+    dinv[3] = R(1) / d;
     /* row 4 */
     d = kk[4];
     f1 = w->rhs[perm[k0 + 4]];
@@ -2721,7 +2769,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[4] = d; dinv[4] = R(1) / d;
+    dinv[4] = R(1) / d;
     /* row 5 */
     d = kk[6];
     f1 = w->rhs[perm[k0 + 5]];
@@ -2733,7 +2781,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[5] = d; dinv[5] = R(1) / d;
+    dinv[5] = R(1) / d;
     /* row 6 */
     d = kk[7];
     f1 = w->rhs[perm[k0 + 6]];
@@ -2742,7 +2790,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[6] = d; dinv[6] = R(1) / d;
+    dinv[6] = R(1) / d;
     /* row 7 */
     d = kk[9];
     f1 = w->rhs[perm[k0 + 7]];
@@ -2754,7 +2802,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[7] = d; dinv[7] = R(1) / d;
+    dinv[7] = R(1) / d;
     /* row 8 */
     d = kk[12];
     f1 = w->rhs[perm[k0 + 8]];
@@ -2769,7 +2817,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[8] = d; dinv[8] = R(1) / d;
+    dinv[8] = R(1) / d;
     /* row 9 */
     d = kk[13];
     f1 = w->rhs[perm[k0 + 9]];
@@ -2778,7 +2826,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[9] = d; dinv[9] = R(1) / d;
+    dinv[9] = R(1) / d;
     /* row 10 */
     d = kk[20];
     f1 = w->rhs[perm[k0 + 10]];
@@ -2805,7 +2853,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[10] = d; dinv[10] = R(1) / d;
+    dinv[10] = R(1) / d;
     /* row 11 */
     d = kk[22];
     f1 = w->rhs[perm[k0 + 11]];
@@ -2817,7 +2865,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[11] = d; dinv[11] = R(1) / d;
+    dinv[11] = R(1) / d;
     /* row 12 */
     d = kk[25];
     f1 = w->rhs[perm[k0 + 12]];
@@ -2832,7 +2880,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[12] = d; dinv[12] = R(1) / d;
+    dinv[12] = R(1) / d;
     /* row 13 */
     d = kk[29];
     f1 = w->rhs[perm[k0 + 13]];
@@ -2850,7 +2898,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[13] = d; dinv[13] = R(1) / d;
+    dinv[13] = R(1) / d;
     /* row 14 */
     d = kk[30];
     f1 = w->rhs[perm[k0 + 14]];
@@ -2859,7 +2907,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[14] = d; dinv[14] = R(1) / d;
+    dinv[14] = R(1) / d;
     /* row 15 */
     d = kk[32];
     f1 = w->rhs[perm[k0 + 15]];
@@ -2871,7 +2919,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[15] = d; dinv[15] = R(1) / d;
+    dinv[15] = R(1) / d;
     /* row 16 */
     d = kk[35];
     f1 = w->rhs[perm[k0 + 16]];
@@ -2886,7 +2934,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[16] = d; dinv[16] = R(1) / d;
+    dinv[16] = R(1) / d;
     /* row 17 */
     d = kk[36];
     f1 = w->rhs[perm[k0 + 17]];
@@ -2895,7 +2943,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[17] = d; dinv[17] = R(1) / d;
+    dinv[17] = R(1) / d;
     /* row 18 */
     d = kk[37];
     f1 = w->rhs[perm[k0 + 18]];
@@ -2904,7 +2952,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[18] = d; dinv[18] = R(1) / d;
+    dinv[18] = R(1) / d;
     /* row 19 */
     d = kk[39];
     f1 = w->rhs[perm[k0 + 19]];
@@ -2919,7 +2967,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[19] = d; dinv[19] = R(1) / d;
+    dinv[19] = R(1) / d;
     /* row 20 */
     d = kk[41];
     f1 = w->rhs[perm[k0 + 20]];
@@ -2931,7 +2979,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[20] = d; dinv[20] = R(1) / d;
+    dinv[20] = R(1) / d;
     /* row 21 */
     d = kk[43];
     f1 = w->rhs[perm[k0 + 21]];
@@ -2946,7 +2994,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[21] = d; dinv[21] = R(1) / d;
+    dinv[21] = R(1) / d;
     /* row 22 */
     d = kk[47];
     f1 = w->rhs[perm[k0 + 22]];
@@ -2984,7 +3032,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[22] = d; dinv[22] = R(1) / d;
+    dinv[22] = R(1) / d;
     /* row 23 */
     d = kk[51];
     f1 = w->rhs[perm[k0 + 23]];
@@ -3015,7 +3063,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[23] = d; dinv[23] = R(1) / d;
+    dinv[23] = R(1) / d;
     /* row 24 */
     d = kk[56];
     f1 = w->rhs[perm[k0 + 24]];
@@ -3087,7 +3135,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[24] = d; dinv[24] = R(1) / d;
+    dinv[24] = R(1) / d;
     /* row 25 */
     d = kk[59];
     f1 = w->rhs[perm[k0 + 25]];
@@ -3133,7 +3181,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[25] = d; dinv[25] = R(1) / d;
+    dinv[25] = R(1) / d;
     /* row 26 */
     d = kk[62];
     f1 = w->rhs[perm[k0 + 26]];
@@ -3176,7 +3224,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[26] = d; dinv[26] = R(1) / d;
+    dinv[26] = R(1) / d;
     /* row 27 */
     d = kk[65];
     f1 = w->rhs[perm[k0 + 27]];
@@ -3208,7 +3256,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[27] = d; dinv[27] = R(1) / d;
+    dinv[27] = R(1) / d;
     /* row 28 */
     d = kk[68];
     f1 = w->rhs[perm[k0 + 28]];
@@ -3242,7 +3290,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[28] = d; dinv[28] = R(1) / d;
+    dinv[28] = R(1) / d;
     /* row 29 */
     d = kk[71];
     f1 = w->rhs[perm[k0 + 29]];
@@ -3282,7 +3330,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[29] = d; dinv[29] = R(1) / d;
+    dinv[29] = R(1) / d;
     /* row 30 */
     d = kk[74];
     f1 = w->rhs[perm[k0 + 30]];
@@ -3315,7 +3363,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[30] = d; dinv[30] = R(1) / d;
+    dinv[30] = R(1) / d;
     /* row 31 */
     d = kk[77];
     f1 = w->rhs[perm[k0 + 31]];
@@ -3346,7 +3394,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[31] = d; dinv[31] = R(1) / d;
+    dinv[31] = R(1) / d;
     /* row 32 */
     d = kk[83];
     f1 = w->rhs[perm[k0 + 32]];
@@ -3379,7 +3427,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[32] = d; dinv[32] = R(1) / d;
+    dinv[32] = R(1) / d;
     /* row 33 */
     d = kk[87];
     f1 = w->rhs[perm[k0 + 33]];
@@ -3400,7 +3448,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[33] = d; dinv[33] = R(1) / d;
+    dinv[33] = R(1) / d;
     /* row 34 */
     d = kk[92];
     f1 = w->rhs[perm[k0 + 34]];
@@ -3424,7 +3472,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[34] = d; dinv[34] = R(1) / d;
+    dinv[34] = R(1) / d;
     /* row 35 */
     d = kk[96];
     f1 = w->rhs[perm[k0 + 35]];
@@ -3505,7 +3553,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dg[35] = d; dinv[35] = R(1) / d;
+    dinv[35] = R(1) / d;
     /* row 36 */
     d = kk[99];
     f1 = w->rhs[perm[k0 + 36]];
@@ -3537,7 +3585,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[36] = d; dinv[36] = R(1) / d;
+    dinv[36] = R(1) / d;
     /* row 37 */
     d = kk[102];
     f1 = w->rhs[perm[k0 + 37]];
@@ -3567,7 +3615,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dg[37] = d; dinv[37] = R(1) / d;
+    dinv[37] = R(1) / d;
     return 0;
 }
 
@@ -4174,38 +4222,63 @@ static void direction_rhs(pdg_socp_work *w, real sig, real *out)
 
 /* One search direction from u0 = K^{-1} (its right-hand side): sig =
  * centring; dkap = the tau-kappa complementarity term; cbh1 =
- * c'x1+b'y1+h'z1 of the tau solve. Fills dx, dy, dz, dtau, dkappa. */
-static void direction(pdg_socp_work *w, real sig, real rt, real dkap, real cbh1)
+ * c'x1+b'y1+h'z1 of the tau solve. Fills dtau, dkappa, and dx, dy when
+ * full (the predictor needs only the cone part, for its step length);
+ * slack_direction then forms dz and ds. */
+static void direction(pdg_socp_work *w, real sig, real rt, real dkap, real cbh1,
+                      int full)
 {
     const real om = R(1) - sig;
     real cbh0, dtau;
     int i;
     cbh0 = cbh_dot(w, w->u0);
     dtau = (-om * rt + dkap / w->tau - cbh0) / (cbh1 - w->kappa / w->tau);
-    for (i = 0; i < NVAR; ++i) {
-        w->dx[i] = w->u0[i] + dtau * w->u1[i];
-    }
-    for (i = 0; i < NEQ; ++i) {
-        w->dy[i] = w->u0[NVAR + i] + dtau * w->u1[NVAR + i];
-    }
-    for (i = 0; i < NCON; ++i) {
-        w->dz[i] = w->u0[NVAR + NEQ + i] + dtau * w->u1[NVAR + NEQ + i];
+    if (full) {
+        for (i = 0; i < NVAR; ++i) {
+            w->dx[i] = w->u0[i] + dtau * w->u1[i];
+        }
+        for (i = 0; i < NEQ; ++i) {
+            w->dy[i] = w->u0[NVAR + i] + dtau * w->u1[NVAR + i];
+        }
     }
     w->dtau = dtau;
     w->dkappa = -(dkap + w->kappa * dtau) / w->tau;
 }
 
-/* ds = -W (v + W dz), v = lambda \ ds_comp held in w->t2 on entry. */
-static void slack_direction(pdg_socp_work *w)
+/* dz = dz0 + dtau dz1 (the cone part of u0 + dtau u1), then ds = -W (v +
+ * W dz) with v = lambda \ ds_comp; W dz is left in w->dza (after the
+ * predictor that is the corrector's W dz_a). One pass, block by block, with
+ * the arithmetic of apply_w twice. */
+static void slack_direction(pdg_socp_work *w, const real *v, real dtau)
 {
-    int i;
-    apply_w(w, w->dz, w->t1, 0);
-    for (i = 0; i < NCON; ++i) {
-        w->t1[i] += w->t2[i];
+    const real *dz0 = w->u0 + NVAR + NEQ;
+    const real *dz1 = w->u1 + NVAR + NEQ;
+    real *t = w->t1;
+    int i, c, k;
+    for (i = 0; i < NLIN; ++i) {
+        real wdz;
+        w->dz[i] = dz0[i] + dtau * dz1[i];
+        wdz = w->dz[i] * w->ntw[i];
+        w->dza[i] = wdz;
+        t[i] = wdz + v[i];
+        w->ds[i] = -(t[i] * w->ntw[i]);
     }
-    apply_w(w, w->t1, w->ds, 0);
-    for (i = 0; i < NCON; ++i) {
-        w->ds[i] = -w->ds[i];
+    for (c = 0; c < NSOC; ++c) {
+        const int o = soc_start[c];
+        const int q = soc_size[c];
+        const real *wb = w->ntw + o;
+        const real eta = w->eta[c];
+        for (k = 0; k < q; ++k) {
+            w->dz[o + k] = dz0[o + k] + dtau * dz1[o + k];
+        }
+        cone_w(wb, eta, R(1), w->dz + o, w->dza + o, q);
+        for (k = 0; k < q; ++k) {
+            t[o + k] = w->dza[o + k] + v[o + k];
+        }
+        cone_w(wb, eta, R(1), t + o, w->ds + o, q);
+        for (k = 0; k < q; ++k) {
+            w->ds[o + k] = -w->ds[o + k];
+        }
     }
 }
 
@@ -4399,6 +4472,16 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
     }
     cone_shift(w->s);
     cone_shift(w->z);
+    /* the tau solve's right-hand side [-c; b; h], the same every iteration */
+    for (i = 0; i < NVAR; ++i) {
+        w->rhs[i] = -c[i];
+    }
+    for (i = 0; i < NEQ; ++i) {
+        w->rhs[NVAR + i] = b[i];
+    }
+    for (i = 0; i < NCON; ++i) {
+        w->rhs[NVAR + NEQ + i] = h[i];
+    }
 
     for (it = 0; it <= max_iter; ++it) {
         real hz, rt, sz, mu, pobj, dobj, thr, cbh1, alpha, sig, dkap, merit;
@@ -4512,23 +4595,12 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
             break;
         }
 
-        /* right-hand sides of the tau solve K u1 = [-c; b; h] and of the
-         * predictor (its ds_comp = lambda o lambda, so lambda \ ds_comp =
-         * lambda): their forward sweeps run inside the factorisation, their
-         * backward sweeps in one pass; then each is refined on its own */
-        for (i = 0; i < NVAR; ++i) {
-            w->rhs[i] = -c[i];
-        }
-        for (i = 0; i < NEQ; ++i) {
-            w->rhs[NVAR + i] = b[i];
-        }
-        for (i = 0; i < NCON; ++i) {
-            w->rhs[NVAR + NEQ + i] = h[i];
-        }
-        for (i = 0; i < NCON; ++i) {
-            w->t2[i] = w->lambda[i];
-        }
-        apply_w(w, w->t2, w->t1, 0);
+        /* right-hand sides of the tau solve K u1 = [-c; b; h] (in rhs since
+         * the starting point) and of the predictor (its ds_comp = lambda o
+         * lambda, so lambda \ ds_comp = lambda): their forward sweeps run
+         * inside the factorisation, their backward sweeps in one pass; then
+         * each is refined on its own */
+        apply_w(w, w->lambda, w->t1, 0);
         direction_rhs(w, R(0), w->rhs2);
         /* factorisation */
         save_iterate(w);
@@ -4543,11 +4615,8 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         cbh1 = cbh_dot(w, w->u1);
         kkt_refine(w, st, w->rhs2, w->u0, 0, PREDICTOR_REFINE);
         dkap = w->kappa * w->tau;
-        direction(w, R(0), rt, dkap, cbh1);
-        for (i = 0; i < NCON; ++i) {
-            w->t2[i] = w->lambda[i];
-        }
-        slack_direction(w);
+        direction(w, R(0), rt, dkap, cbh1, 0);
+        slack_direction(w, w->lambda, w->dtau);
         alpha = max_step(w);
         if (alpha > R(1)) {
             alpha = R(1);
@@ -4556,29 +4625,12 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         sig = sig * sig * sig;
 
         /* corrector: ds_comp = lambda o lambda + (W^{-1} ds_a) o (W dz_a) - sig mu e */
-        apply_w(w, w->ds, w->dsa, 1);
-        apply_w(w, w->dz, w->dza, 0);
-        cone_prod(w->dsa, w->dza, w->t1);
-        cone_prod(w->lambda, w->lambda, w->t2);
-        for (i = 0; i < NCON; ++i) {
-            w->t2[i] += w->t1[i];
-        }
-        for (i = 0; i < NLIN; ++i) {
-            w->t2[i] -= sig * mu;
-        }
-        for (i = 0; i < NSOC; ++i) {
-            w->t2[soc_start[i]] -= sig * mu;
-        }
+        corrector_terms(w, sig * mu);           /* dsa := lambda \ ds_comp, t1 := W dsa */
         dkap = w->kappa * w->tau + w->dkappa * w->dtau - sig * mu;
-        cone_div(w->lambda, w->t2, w->dsa);     /* dsa := lambda \ ds_comp */
-        apply_w(w, w->dsa, w->t1, 0);
-        direction_rhs(w, sig, w->rhs);
-        kkt_solve(w, st, w->rhs, w->u0, 0, 32);
-        direction(w, sig, rt, dkap, cbh1);
-        for (i = 0; i < NCON; ++i) {
-            w->t2[i] = w->dsa[i];
-        }
-        slack_direction(w);
+        direction_rhs(w, sig, w->rhs2);         /* the predictor's is spent */
+        kkt_solve(w, st, w->rhs2, w->u0, 0, 32);
+        direction(w, sig, rt, dkap, cbh1, 1);
+        slack_direction(w, w->dsa, w->dtau);
         alpha = st->step_fraction * max_step(w);
         if (alpha > R(1)) {
             alpha = R(1);

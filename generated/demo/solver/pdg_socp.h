@@ -104,8 +104,6 @@ typedef struct {
     /* KKT matrix (permuted upper CSC values) and its LDL' factor */
     pdg_real kkt[PDG_SOCP_KKT_NNZ];
     pdg_real lx[8497];   /* L by columns (pattern l_ptr, l_row) */
-    pdg_real lr[8497];   /* the same values by rows (pattern r_ptr, r_col) */
-    pdg_real dg[PDG_SOCP_NKKT];
     pdg_real dinv[PDG_SOCP_NKKT];
     pdg_real scat[PDG_SOCP_NKKT];
     int lfill[PDG_SOCP_NKKT];
