@@ -342,7 +342,7 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
     nsoc = a["nsoc"]
     # the members of {prefix}_socp_work, as declared in socp.h.j2
     reals = (ctx["ndata"] + n + p + 2 * m + 2         # data, x, y, z, s, tau, kappa
-             + 2 * m + 5 * nsoc                      # lambda, ntw, eta, det_s .. root_z
+             + 2 * m + 10 * nsoc                     # lambda, ntw, eta, rw, geo_s, geo_z
              + sym.nnz_kkt + a["nnz_L"] + 2 * dim     # kkt, lx, dinv, scat
              + 6 * dim                               # rhs, rhs2, u0, u1, res, corr
              + 2 * n + 2 * p + 7 * m                 # rx, ry, rz, dx, dy, dz, ds, dsa, dza, t1, t2

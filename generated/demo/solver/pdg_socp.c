@@ -74,6 +74,16 @@ typedef unsigned short idx_t;
 /* Refinement stops once the KKT residual is below this times mu. */
 #define REFINE_MU_FACTOR R(0.01)
 #define R(v) ((real)(v))
+/* A denominator y that is used more than once is kept as DEN(y) and used as
+ * OVER(x, DEN(y)) = x / y. In double DEN(y) is 1/y and OVER multiplies:
+ * divisions cost more wall time than anything else in the cone work (6000
+ * of them an iteration at N = 50 went this way, 6.5% of a solve). In single
+ * DEN(y) is y and OVER divides, as written: the extra rounding of a
+ * reciprocal cost the single-precision demo a state (SOLVED_REDUCED). */
+
+#define DEN(y) (R(1) / (y))
+#define OVER(x, d) ((x) * (d))
+
 #define SQRT(v) sqrt(v)
 #define FABS(v) fabs(v)
 
@@ -2235,7 +2245,9 @@ static int nt_scaling(pdg_socp_work *w)
         const real *s = w->s + o;
         const real *z = w->z + o;
         real *wb = w->ntw + o;
-        real ns1 = R(0), nz1 = R(0), sdet, zdet, sn, zn, szb, gam, w1v, eta;
+        real *gs = w->geo_s + 4 * c;
+        real *gz = w->geo_z + 4 * c;
+        real ns1 = R(0), nz1 = R(0), sdet, zdet, sn, zn, isn, izn, szb, gam, i2g, w1v, eta, rw;
         for (k = 1; k < q; ++k) {
             ns1 += s[k] * s[k];
             nz1 += z[k] * z[k];
@@ -2249,21 +2261,31 @@ static int nt_scaling(pdg_socp_work *w)
         }
         sn = SQRT(sdet);
         zn = SQRT(zdet);
-        w->det_s[c] = sdet;
-        w->root_s[c] = sn;
-        w->det_z[c] = zdet;
-        w->root_z[c] = zn;
+        isn = DEN(sn);
+        izn = DEN(zn);
+        /* for cone_step: nu^2, nu, nu, u0 + nu of s and of z, as DEN */
+        gs[0] = DEN(sdet);
+        gs[1] = sn;
+        gs[2] = isn;
+        gs[3] = DEN(s[0] + sn);
+        gz[0] = DEN(zdet);
+        gz[1] = zn;
+        gz[2] = izn;
+        gz[3] = DEN(z[0] + zn);
         szb = R(0);
         for (k = 0; k < q; ++k) {
-            szb += (s[k] / sn) * (z[k] / zn);
+            szb += OVER(s[k], isn) * OVER(z[k], izn);
         }
         gam = SQRT((R(1) + szb) / R(2));
-        wb[0] = (s[0] / sn + z[0] / zn) / (R(2) * gam);
+        i2g = DEN(R(2) * gam);
+        wb[0] = OVER(OVER(s[0], isn) + OVER(z[0], izn), i2g);
         for (k = 1; k < q; ++k) {
-            wb[k] = (s[k] / sn - z[k] / zn) / (R(2) * gam);
+            wb[k] = OVER(OVER(s[k], isn) - OVER(z[k], izn), i2g);
         }
-        eta = SQRT(sn / zn);
+        eta = SQRT(OVER(sn, izn));
         w->eta[c] = eta;
+        rw = DEN(R(1) + wb[0]);
+        w->rw[c] = rw;
         /* lambda = eta * Wbar z */
         w1v = R(0);
         for (k = 1; k < q; ++k) {
@@ -2271,7 +2293,7 @@ static int nt_scaling(pdg_socp_work *w)
         }
         w->lambda[o] = eta * (wb[0] * z[0] + w1v);
         {
-            const real f = z[0] + w1v / (R(1) + wb[0]);
+            const real f = z[0] + OVER(w1v, rw);
             for (k = 1; k < q; ++k) {
                 w->lambda[o + k] = eta * (z[k] + f * wb[k]);
             }
@@ -2282,8 +2304,10 @@ static int nt_scaling(pdg_socp_work *w)
 
 /* One second-order block of out = W v (sg = 1, sc = eta) or of W^{-1} v
  * (sg = -1, sc = 1/eta: W^{-1} = J Wbar J / eta flips the sign of the
- * cross terms); wb is the block's normalised scaling point, out != v. */
-static inline void cone_w(const real *wb, real sc, real sg, const real *vv, real *out, int q)
+ * cross terms); wb is the block's normalised scaling point, rw = DEN(1 +
+ * wb[0]), out != v. */
+static inline void cone_w(const real *wb, real rw, real sc, real sg, const real *vv, real *out,
+                          int q)
 {
     real w1v = R(0), f;
     int k;
@@ -2291,7 +2315,7 @@ static inline void cone_w(const real *wb, real sc, real sg, const real *vv, real
         w1v += wb[k] * vv[k];
     }
     out[0] = sc * (wb[0] * vv[0] + sg * w1v);
-    f = sg * vv[0] + w1v / (R(1) + wb[0]);
+    f = sg * vv[0] + OVER(w1v, rw);
     for (k = 1; k < q; ++k) {
         out[k] = sc * (vv[k] + f * wb[k]);
     }
@@ -2312,8 +2336,8 @@ static void apply_w(const pdg_socp_work *w, const real *v, real *out, int invers
     }
     for (c = 0; c < NSOC; ++c) {
         const int o = soc_start[c];
-        cone_w(w->ntw + o, inverse ? R(1) / w->eta[c] : w->eta[c], inverse ? R(-1) : R(1),
-               v + o, out + o, soc_size[c]);
+        cone_w(w->ntw + o, w->rw[c], inverse ? R(1) / w->eta[c] : w->eta[c],
+               inverse ? R(-1) : R(1), v + o, out + o, soc_size[c]);
     }
 }
 
@@ -2351,7 +2375,7 @@ static inline void block_prod(const real *u, const real *v, real *out, int q)
  * the interior), q entries; out may be v. */
 static inline void block_div(const real *u, const real *v, real *out, int q)
 {
-    real n1 = R(0), uv = R(0), det, x0;
+    real n1 = R(0), uv = R(0), det, x0, iu0;
     int k;
     for (k = 1; k < q; ++k) {
         n1 += u[k] * u[k];
@@ -2361,8 +2385,9 @@ static inline void block_div(const real *u, const real *v, real *out, int q)
     det = (u[0] - n1) * (u[0] + n1);
     x0 = (u[0] * v[0] - uv) / det;
     out[0] = x0;
+    iu0 = DEN(u[0]);
     for (k = 1; k < q; ++k) {
-        out[k] = (v[k] - x0 * u[k]) / u[0];
+        out[k] = OVER(v[k] - x0 * u[k], iu0);
     }
 }
 
@@ -2389,7 +2414,7 @@ static void corrector_terms(pdg_socp_work *w, real smu)
     for (c = 0; c < NSOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
-        cone_w(w->ntw + o, R(1) / w->eta[c], R(-1), w->ds + o, dsa + o, q);
+        cone_w(w->ntw + o, w->rw[c], R(1) / w->eta[c], R(-1), w->ds + o, dsa + o, q);
         block_prod(dsa + o, w->dza + o, t1 + o, q);
         block_prod(lam + o, lam + o, t2 + o, q);
         for (k = 0; k < q; ++k) {
@@ -2397,7 +2422,7 @@ static void corrector_terms(pdg_socp_work *w, real smu)
         }
         t2[o] -= smu;
         block_div(lam + o, t2 + o, dsa + o, q);
-        cone_w(w->ntw + o, w->eta[c], R(1), dsa + o, t1 + o, q);
+        cone_w(w->ntw + o, w->rw[c], w->eta[c], R(1), dsa + o, t1 + o, q);
     }
 }
 
@@ -2406,11 +2431,10 @@ static void corrector_terms(pdg_socp_work *w, real smu)
  * maps d/nu to rho, rho0 = u'Jd / nu^2, rho1 = (d1 - f u1)/nu with
  * f = (d0 + rho0 nu... ) (Vandenberghe 2010, step-length computation);
  * e + a rho stays in the cone while a (||rho1|| - rho0) <= 1. */
-/* Largest a <= cap with u + a d in the cone; udet[c] and uroot[c] are
- * u0^2 - |u1|^2 of each second-order block of u and its square root, as
- * nt_scaling computed them for this iterate. */
-static real cone_step(const real *u, const real *d, real cap, const real *udet,
-                      const real *uroot)
+/* Largest a <= cap with u + a d in the cone; geo[4c..4c+3] are DEN(nu^2),
+ * nu, DEN(nu) and DEN(u0 + nu) of each second-order block of u, nu^2 =
+ * u0^2 - |u1|^2, as nt_scaling computed them for this iterate. */
+static real cone_step(const real *u, const real *d, real cap, const real *geo)
 {
     real a = cap;
     int i, c, k;
@@ -2422,19 +2446,18 @@ static real cone_step(const real *u, const real *d, real cap, const real *udet,
     for (c = 0; c < NSOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
-        const real nu2 = udet[c];
-        const real nu = uroot[c];
+        const real *g = geo + 4 * c;
         real ujd = u[o] * d[o], r0, fac, r1 = R(0), t;
         for (k = 1; k < q; ++k) {
             ujd -= u[o + k] * d[o + k];
         }
-        r0 = ujd / nu2;
-        fac = (d[o] + r0 * nu) / (u[o] + nu);
+        r0 = OVER(ujd, g[0]);
+        fac = OVER(d[o] + r0 * g[1], g[3]);
         for (k = 1; k < q; ++k) {
             const real e = d[o + k] - fac * u[o + k];
             r1 += e * e;
         }
-        t = SQRT(r1) / nu - r0;
+        t = OVER(SQRT(r1), g[2]) - r0;
         if (t * a > R(1)) {
             a = R(1) / t;
         }
@@ -4271,11 +4294,11 @@ static void slack_direction(pdg_socp_work *w, const real *v, real dtau)
         for (k = 0; k < q; ++k) {
             w->dz[o + k] = dz0[o + k] + dtau * dz1[o + k];
         }
-        cone_w(wb, eta, R(1), w->dz + o, w->dza + o, q);
+        cone_w(wb, w->rw[c], eta, R(1), w->dz + o, w->dza + o, q);
         for (k = 0; k < q; ++k) {
             t[o + k] = w->dza[o + k] + v[o + k];
         }
-        cone_w(wb, eta, R(1), t + o, w->ds + o, q);
+        cone_w(wb, w->rw[c], eta, R(1), t + o, w->ds + o, q);
         for (k = 0; k < q; ++k) {
             w->ds[o + k] = -w->ds[o + k];
         }
@@ -4284,8 +4307,8 @@ static void slack_direction(pdg_socp_work *w, const real *v, real dtau)
 
 static real max_step(const pdg_socp_work *w)
 {
-    real a = cone_step(w->s, w->ds, R(1e30), w->det_s, w->root_s);
-    a = cone_step(w->z, w->dz, a, w->det_z, w->root_z);
+    real a = cone_step(w->s, w->ds, R(1e30), w->geo_s);
+    a = cone_step(w->z, w->dz, a, w->geo_z);
     if (w->dtau < R(0) && -w->tau / w->dtau < a) {
         a = -w->tau / w->dtau;
     }

@@ -97,10 +97,11 @@ typedef struct {
     pdg_real lambda[947];
     pdg_real ntw[947];
     pdg_real eta[199];
-    pdg_real det_s[199];  /* s0^2 - |s1|^2 per cone, and its root (nt_scaling) */
-    pdg_real root_s[199];
-    pdg_real det_z[199];  /* the same for z */
-    pdg_real root_z[199];
+    pdg_real rw[199];     /* 1 + wbar0 per cone, as a denominator (see DEN in the .c) */
+    /* per cone, nu^2, nu, nu, u0 + nu of u = s and u = z, nu^2 = u0^2 - |u1|^2, the 1st, 3rd
+     * and 4th as denominators (nt_scaling) */
+    pdg_real geo_s[4 * 199];
+    pdg_real geo_z[4 * 199];
     /* KKT matrix (permuted upper CSC values) and its LDL' factor */
     pdg_real kkt[PDG_SOCP_KKT_NNZ];
     pdg_real lx[8497];   /* L by columns (pattern l_ptr, l_row) */
