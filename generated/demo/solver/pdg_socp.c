@@ -4253,10 +4253,10 @@ static void direction(pdg_socp_work *w, real sig, real rt, real dkap, real cbh1,
 {
     const real om = R(1) - sig;
     real cbh0, dtau;
-    int i;
     cbh0 = cbh_dot(w, w->u0);
     dtau = (-om * rt + dkap / w->tau - cbh0) / (cbh1 - w->kappa / w->tau);
     if (full) {
+        int i;
         for (i = 0; i < NVAR; ++i) {
             w->dx[i] = w->u0[i] + dtau * w->u1[i];
         }
