@@ -76,9 +76,9 @@ typedef unsigned short idx_t;
 #define R(v) ((real)(v))
 /* A denominator y that is used more than once is kept as DEN(y) and used as
  * OVER(x, DEN(y)) = x / y. In double DEN(y) is 1/y and OVER multiplies:
- * divisions cost more wall time than anything else in the cone work (6000
- * of them an iteration at N = 50 went this way, 6.5% of a solve). In single
- * DEN(y) is y and OVER divides, as written: the extra rounding of a
+ * divisions cost more wall time than their share of the instructions
+ * (about 5600 an iteration at N = 50 went this way, 2 to 8% of a solve). In
+ * single DEN(y) is y and OVER divides, as written: the extra rounding of a
  * reciprocal cost the single-precision demo a state (SOLVED_REDUCED). */
 
 #define DEN(y) (R(1) / (y))
@@ -2263,7 +2263,7 @@ static int nt_scaling(pdg_socp_work *w)
         zn = SQRT(zdet);
         isn = DEN(sn);
         izn = DEN(zn);
-        /* for cone_step: nu^2, nu, nu, u0 + nu of s and of z, as DEN */
+        /* for cone_step: DEN(nu^2), nu, DEN(nu), DEN(u0 + nu) of s and of z */
         gs[0] = DEN(sdet);
         gs[1] = sn;
         gs[2] = isn;
@@ -2321,23 +2321,17 @@ static inline void cone_w(const real *wb, real rw, real sc, real sg, const real 
     }
 }
 
-/* out = W v (inverse = 0) or out = W^{-1} v (inverse = 1); out != v. */
-static void apply_w(const pdg_socp_work *w, const real *v, real *out, int inverse)
+/* out = W v; out != v. (W^{-1} is applied block by block where it is
+ * needed: corrector_terms.) */
+static void apply_w(const pdg_socp_work *w, const real *v, real *out)
 {
     int i, c;
-    if (inverse) {
-        for (i = 0; i < NLIN; ++i) {
-            out[i] = v[i] / w->ntw[i];
-        }
-    } else {
-        for (i = 0; i < NLIN; ++i) {
-            out[i] = v[i] * w->ntw[i];
-        }
+    for (i = 0; i < NLIN; ++i) {
+        out[i] = v[i] * w->ntw[i];
     }
     for (c = 0; c < NSOC; ++c) {
         const int o = soc_start[c];
-        cone_w(w->ntw + o, w->rw[c], inverse ? R(1) / w->eta[c] : w->eta[c],
-               inverse ? R(-1) : R(1), v + o, out + o, soc_size[c]);
+        cone_w(w->ntw + o, w->rw[c], w->eta[c], R(1), v + o, out + o, soc_size[c]);
     }
 }
 
@@ -2395,7 +2389,7 @@ static inline void block_div(const real *u, const real *v, real *out, int q)
  * ds_comp = lambda o lambda + (W^{-1} ds_a) o (W dz_a) - smu e, then
  * dsa := lambda \ ds_comp and t1 := W dsa; dza holds W dz_a on entry. One
  * pass, block by block (t2 is scratch), with the arithmetic of the
- * whole-vector steps apply_w, o, +, -, \ and apply_w in that order. */
+ * whole-vector steps W^{-1}, o, +, -, \ and W that it replaced. */
 static void corrector_terms(pdg_socp_work *w, real smu)
 {
     const real *lam = w->lambda;
@@ -2429,11 +2423,10 @@ static void corrector_terms(pdg_socp_work *w, real smu)
 /* Largest a in [0, cap] with u + a d in the cone (u in the interior).
  * SOC: with nu = sqrt(u'Ju), the hyperbolic reflection that maps u/nu to e
  * maps d/nu to rho, rho0 = u'Jd / nu^2, rho1 = (d1 - f u1)/nu with
- * f = (d0 + rho0 nu... ) (Vandenberghe 2010, step-length computation);
- * e + a rho stays in the cone while a (||rho1|| - rho0) <= 1. */
-/* Largest a <= cap with u + a d in the cone; geo[4c..4c+3] are DEN(nu^2),
- * nu, DEN(nu) and DEN(u0 + nu) of each second-order block of u, nu^2 =
- * u0^2 - |u1|^2, as nt_scaling computed them for this iterate. */
+ * f = (d0 + rho0 nu) / (u0 + nu) (Vandenberghe 2010, step-length
+ * computation); e + a rho stays in the cone while a (||rho1|| - rho0) <= 1.
+ * geo[4c..4c+3] are DEN(nu^2), nu, DEN(nu) and DEN(u0 + nu) of block c of
+ * u, as nt_scaling computed them for this iterate. */
 static real cone_step(const real *u, const real *d, real cap, const real *geo)
 {
     real a = cap;
@@ -2555,17 +2548,13 @@ static void kkt_assemble_scaling(pdg_socp_work *w, int init)
         const real *wb = w->ntw + o;
         const real e2 = w->eta[c] * w->eta[c];
         /* W'W = eta^2 (2 wbar wbar' - J) */
-        w->kkt[kpos_zdiag[o]] = -(e2 * (R(2) * wb[0] * wb[0] + R(-1))) - eps;
-        for (b = 1; b < q; ++b) {
-            w->kkt[kpos_zoff[k + b - 1]] = -e2 * R(2) * wb[0] * wb[b];
-        }
-        k += q - 1;
-        for (a = 1; a < q; ++a) {
-            w->kkt[kpos_zdiag[o + a]] = -(e2 * (R(2) * wb[a] * wb[a] + R(1))) - eps;
+        for (a = 0; a < q; ++a) {
+            const real j = a == 0 ? R(-1) : R(1);
+            w->kkt[kpos_zdiag[o + a]] = -(e2 * (R(2) * wb[a] * wb[a] + j)) - eps;
             for (b = a + 1; b < q; ++b) {
-                w->kkt[kpos_zoff[k + b - a - 1]] = -e2 * R(2) * wb[a] * wb[b];
+                w->kkt[kpos_zoff[k]] = -e2 * R(2) * wb[a] * wb[b];
+                ++k;
             }
-            k += q - a - 1;
         }
     }
 }
@@ -4623,7 +4612,7 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
          * lambda, so lambda \ ds_comp = lambda): their forward sweeps run
          * inside the factorisation, their backward sweeps in one pass; then
          * each is refined on its own */
-        apply_w(w, w->lambda, w->t1, 0);
+        apply_w(w, w->lambda, w->t1);
         direction_rhs(w, R(0), w->rhs2);
         /* factorisation */
         save_iterate(w);
