@@ -64,7 +64,7 @@ typedef struct {
     double accel_slack_mps2[50];   /**< sigma >= |u|; equal at a lossless optimum */
 } pdg_plan;
 
-/** Caller-owned workspace (about 531432 bytes; see README.md). */
+/** Caller-owned workspace (about 448116 bytes; see README.md). */
 typedef struct {
     pdg_backend_work backend;
     double params[PDG_NPARAM];

@@ -107,10 +107,6 @@ typedef struct {
     pdg_real lx[8497];   /* L by columns (pattern l_ptr, l_row) */
     pdg_real dinv[PDG_SOCP_NKKT];
     pdg_real scat[PDG_SOCP_NKKT];
-    int lfill[PDG_SOCP_NKKT];
-    int r_ptr[PDG_SOCP_NKKT + 1];   /* row-wise pattern of L, built per solve */
-    int r_col[8497];
-    int r_pos[8497];           /* position in lx of each row-wise entry */
     /* right-hand sides, solutions, refinement scratch */
     pdg_real rhs[PDG_SOCP_NKKT];
     pdg_real rhs2[PDG_SOCP_NKKT];
