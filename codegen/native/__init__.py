@@ -301,8 +301,8 @@ def _row_pattern(sym: KKTSymbolic, kern) -> dict:
     its periodic range), as const arrays: r_ptr over those rows (the rows
     after the range at offset r_skip = rows skipped), r_col the column of
     each entry, r_pos its position in lx (column-wise). Computed here once
-    instead of per solve: the transpose had cost 3% of a solve's wall time
-    and 83 KB of workspace at N = 50."""
+    instead of per solve: the transpose had cost about 1% of a solve's wall
+    time and 83 KB of workspace at N = 50."""
     if kern is None:
         ranges = [(0, sym.dim)]
     else:
