@@ -2260,7 +2260,7 @@ static void kkt_offdiag_mul(const pdg_socp_work *w, const real *vx, const real *
     EACH(i, NCON) {
         oz[i] = R(0);
     }
-    EACH(j, NVAR) {
+    for (j = 0; j < NVAR; ++j) {
         const real xj = vx[j];
         real acc = R(0);
         for (k = a_ptr[j]; k < a_ptr[j + 1]; ++k) {
@@ -2482,7 +2482,7 @@ static real cone_step(const real *u, const real *d, real cap, const real *geo)
 {
     real a = cap;
     int i, c, k;
-    EACH(i, NLIN) {
+    for (i = 0; i < NLIN; ++i) {
         if (d[i] * a < -u[i]) {
             a = -u[i] / d[i];
         }
@@ -2514,7 +2514,7 @@ static real cone_violation(const real *u)
 {
     real worst = -HUGE_VAL;
     int i, c, k;
-    EACH(i, NLIN) {
+    for (i = 0; i < NLIN; ++i) {
         if (-u[i] > worst) {
             worst = -u[i];
         }
@@ -2567,10 +2567,10 @@ static void kkt_assemble_data(pdg_socp_work *w)
     for (k = 0; k < G_NNZ; ++k) {
         w->kkt[kpos_g[k]] = gv[k];
     }
-    EACH(i, NVAR) {
+    for (i = 0; i < NVAR; ++i) {
         w->kkt[kpos_xdiag[i]] = eps;
     }
-    EACH(i, NEQ) {
+    for (i = 0; i < NEQ; ++i) {
         w->kkt[kpos_ydiag[i]] = -eps;
     }
 }
@@ -2581,7 +2581,7 @@ static void kkt_assemble_scaling(pdg_socp_work *w, int init)
     const real eps = w->reg;
     int i, c, a, b, k;
     if (init) {
-        EACH(i, NCON) {
+        for (i = 0; i < NCON; ++i) {
             w->kkt[kpos_zdiag[i]] = -R(1) - eps;
         }
         for (k = 0; k < ZOFF_NNZ; ++k) {
@@ -2589,7 +2589,7 @@ static void kkt_assemble_scaling(pdg_socp_work *w, int init)
         }
         return;
     }
-    EACH(i, NLIN) {
+    for (i = 0; i < NLIN; ++i) {
         w->kkt[kpos_zdiag[i]] = -(w->ntw[i] * w->ntw[i]) - eps;
     }
     k = 0;
@@ -4178,7 +4178,7 @@ static real kkt_residual(pdg_socp_work *w, const real *b, const real *x, int ini
     if (!init) {
         apply_w2(w, x + NVAR + NEQ, w->t2);
     }
-    EACH(k, NVAR + NEQ) {
+    for (k = 0; k < NVAR + NEQ; ++k) {
         const real r = b[k] - res[k];
         const real a = FABS(r);
         res[k] = r;
