@@ -142,7 +142,7 @@ class Config:
     seed: int = 2026
     time_of_flight_s: float = FIXED_TOF_S
     c_budget_s: float = 0.3            # C timing per instance and backend (sets repetitions)
-    rounds: int = 3                    # the budget is spent in this many rotating rounds
+    rounds: int = 10                   # the budget is spent in this many rotating rounds
     min_reps: int = 15
     max_reps: int = 3000
     cffi_reps_max: int = 200           # cffi calls per instance and backend
@@ -809,8 +809,9 @@ def notes(cfg: Config) -> list:
         "over its repetitions; 'worst' is the slowest single call of any instance (on a shared "
         "machine mostly preemption), 'p99' the largest per-instance 99th percentile; 'best' "
         "is the median over instances of each one's fastest call, the figure least disturbed by "
-        "other jobs. Each instance's repetitions are spent in a few rounds, the backend order "
-        "rotating every round.",
+        f"other jobs. Each instance's repetitions are spent in {cfg.rounds} short rounds, the "
+        "backend order rotating every round, so that a slow phase of the shared host falls on "
+        "all backends alike; an instance's median is the median of its rounds' medians.",
         "C times are measured inside C by a bench-only harness around <prefix>_plan_descent "
         "(clock_gettime(CLOCK_MONOTONIC)); that call includes the guidance layer (parameters from "
         "the state, one solve, SI conversion). 'cffi call' is the same call from Python; "
