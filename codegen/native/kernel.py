@@ -17,7 +17,10 @@ which is what the generic scatter loop computes, in the same order of
 additions; with the forward sweeps of the two right-hand sides and the
 regularisation of the pivot, as the generic rows do.  The forward sweeps of
 the kernel's rows (forward_stage) read lx at positions known at generation
-time.
+time.  The backward sweeps subtract a column's entries rows descending, as
+the generic backward loops do: the entries of t computed last come last in
+the chain (a latency-bound sweep otherwise waits for the whole chain per
+column).
 """
 
 from __future__ import annotations
@@ -205,7 +208,8 @@ def _c_forward(ops) -> str:
 def _c_backward(ops) -> str:
     out = []
     for c, ents in reversed(ops):
-        out.extend(_stmt(f"t[{c}]", f"t[{c}] * dinv[{c}]", [f"lx[{q}] * t[{ir}]" for q, ir in ents]))
+        out.extend(_stmt(f"t[{c}]", f"t[{c}] * dinv[{c}]",
+                         [f"lx[{q}] * t[{ir}]" for q, ir in reversed(ents)]))
         out.append(f"    x[perm[k0 + {c}]] = t[{c}];")
     return "\n".join(out)
 
@@ -213,9 +217,10 @@ def _c_backward(ops) -> str:
 def _c_backward2(ops) -> str:
     out = []
     for c, ents in reversed(ops):
-        out.extend(_stmt(f"t[{c}]", f"t[{c}] * dinv[{c}]", [f"lx[{q}] * t[{ir}]" for q, ir in ents]))
+        out.extend(_stmt(f"t[{c}]", f"t[{c}] * dinv[{c}]",
+                         [f"lx[{q}] * t[{ir}]" for q, ir in reversed(ents)]))
         out.extend(_stmt(f"t2[{c}]", f"t2[{c}] * dinv[{c}]",
-                         [f"lx[{q}] * t2[{ir}]" for q, ir in ents]))
+                         [f"lx[{q}] * t2[{ir}]" for q, ir in reversed(ents)]))
         out.append(f"    x1[perm[k0 + {c}]] = t[{c}]; x2[perm[k0 + {c}]] = t2[{c}];")
     return "\n".join(out)
 
