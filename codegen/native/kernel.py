@@ -205,11 +205,17 @@ def _c_forward(ops) -> str:
     return "\n".join(out)
 
 
+def _backward_stmt(vec: str, c: int, ents) -> list:
+    """``vec[c] = vec[c] * dinv[c] - ...`` with the column's rows descending
+    (the entries computed last come last in the chain)."""
+    return _stmt(f"{vec}[{c}]", f"{vec}[{c}] * dinv[{c}]",
+                 [f"lx[{q}] * {vec}[{ir}]" for q, ir in reversed(ents)])
+
+
 def _c_backward(ops) -> str:
     out = []
     for c, ents in reversed(ops):
-        out.extend(_stmt(f"t[{c}]", f"t[{c}] * dinv[{c}]",
-                         [f"lx[{q}] * t[{ir}]" for q, ir in reversed(ents)]))
+        out.extend(_backward_stmt("t", c, ents))
         out.append(f"    x[perm[k0 + {c}]] = t[{c}];")
     return "\n".join(out)
 
@@ -217,10 +223,8 @@ def _c_backward(ops) -> str:
 def _c_backward2(ops) -> str:
     out = []
     for c, ents in reversed(ops):
-        out.extend(_stmt(f"t[{c}]", f"t[{c}] * dinv[{c}]",
-                         [f"lx[{q}] * t[{ir}]" for q, ir in reversed(ents)]))
-        out.extend(_stmt(f"t2[{c}]", f"t2[{c}] * dinv[{c}]",
-                         [f"lx[{q}] * t2[{ir}]" for q, ir in reversed(ents)]))
+        out.extend(_backward_stmt("t", c, ents))
+        out.extend(_backward_stmt("t2", c, ents))
         out.append(f"    x1[perm[k0 + {c}]] = t[{c}]; x2[perm[k0 + {c}]] = t2[{c}];")
     return "\n".join(out)
 
