@@ -45,8 +45,8 @@ from codegen.emit import generate
 from codegen.errors import InputError
 from codegen.fsutil import write_atomic
 from codegen.reference import ReferenceSolver
-from codegen.trajectory import OPTIMAL
-from codegen.vehicle import load_vehicle
+from codegen.model.trajectory import OPTIMAL
+from codegen.model.vehicle import load_vehicle
 
 ROOT = Path(__file__).resolve().parent.parent
 BENCH_DIR = Path(__file__).resolve().parent

@@ -16,15 +16,15 @@ import pytest
 from bench import benchlib
 from bench.conftest import CONFIG
 from codegen.reference import ReferenceSolver
-from codegen.trajectory import OPTIMAL
-from codegen.vehicle import load_vehicle
+from codegen.model.trajectory import OPTIMAL
+from codegen.model.vehicle import load_vehicle
 
 #: Relative objective error allowed against the reference (Clarabel at 1e-9):
 #: all three solvers stop at relative gaps of about 1e-8 (their defaults; common
 #: practice), so 1e-6 leaves two orders of margin.
 OBJECTIVE_RTOL = 1e-6
 #: With the search, both sides run the same grid and golden section
-#: (codegen/tofsearch.py and its C mirror) but may stop at slightly different
+#: (codegen/model/tofsearch.py and its C mirror) but may stop at slightly different
 #: times of flight within the search tolerance; the objective is flat there.
 SEARCH_RTOL = 1e-3
 

@@ -24,10 +24,10 @@ from pathlib import Path
 
 import numpy as np
 
-from .emit import verify_tree
-from .errors import InputError
-from .trajectory import STATUSES, Trajectory
-from .vehicle import load_vehicle
+from codegen.emit import verify_tree
+from codegen.errors import InputError
+from codegen.model.trajectory import STATUSES, Trajectory
+from codegen.model.vehicle import load_vehicle
 
 _STATUS_NAMES = ("optimal", "infeasible", "iteration_limit", "numerical_trouble", "bad_input")
 assert all(s in STATUSES for s in _STATUS_NAMES)

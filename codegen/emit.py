@@ -23,15 +23,16 @@ from pathlib import Path
 
 import jinja2
 
-from . import __version__, tofsearch
-from .backends import DEFAULT_BACKEND, get_backend
-from .canonical import extract
-from .errors import InputError
-from .fsutil import swap_in_directory
-from .problem import MASS_FLOOR_FRACTION, DescentProblem
-from .vehicle import VEHICLE_KEYS, load_vehicle
+from codegen import __version__
+from codegen.model import tofsearch
+from codegen.backends import DEFAULT_BACKEND, get_backend
+from codegen.model.canonical import extract
+from codegen.errors import InputError
+from codegen.fsutil import TEMPLATES_DIR, swap_in_directory
+from codegen.model.problem import MASS_FLOOR_FRACTION, DescentProblem
+from codegen.model.vehicle import VEHICLE_KEYS, load_vehicle
 
-TEMPLATES = Path(__file__).resolve().parent.parent / "templates"
+TEMPLATES = TEMPLATES_DIR
 DEFAULT_PREFIX = "pdg"
 DEFAULT_MAX_ITER = 100
 MAX_ITER_CAP = 200

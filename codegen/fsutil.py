@@ -2,7 +2,9 @@
 
 write_atomic and swap_in_directory write; complete_lines reads an
 append-only log whose last line a kill may have torn; read_toml reads an
-input file once, for both its contents and its hash."""
+input file once, for both its contents and its hash. PACKAGE_DIR,
+REPO_DIR and TEMPLATES_DIR say where the package, the checkout and its
+templates are."""
 
 from __future__ import annotations
 
@@ -13,7 +15,13 @@ import tempfile
 import tomllib
 from pathlib import Path
 
-from .errors import InputError
+from codegen.errors import InputError
+
+#: The package's own directory (codegen/), the checkout that holds it, and
+#: the templates beside it (the package is installed in editable mode).
+PACKAGE_DIR = Path(__file__).resolve().parent
+REPO_DIR = PACKAGE_DIR.parent
+TEMPLATES_DIR = REPO_DIR / "templates"
 
 
 def write_atomic(path, data, mode: int = 0o644) -> None:

@@ -7,9 +7,9 @@ import math
 
 import numpy as np
 
-from .fsutil import write_atomic
-from .trajectory import Trajectory
-from .vehicle import Vehicle
+from codegen.fsutil import write_atomic
+from codegen.model.trajectory import Trajectory
+from codegen.model.vehicle import Vehicle
 
 
 def plot_trajectory(traj: Trajectory, vehicle: Vehicle, path, target_m=(0.0, 0.0, 0.0)) -> None:

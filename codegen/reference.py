@@ -15,12 +15,11 @@ import warnings
 import cvxpy as cp
 import numpy as np
 
-from . import tofsearch
-from .errors import InputError
-from .problem import DescentProblem, time_of_flight_bracket
-from .trajectory import (BAD_INPUT, INFEASIBLE, ITERATION_LIMIT, LEAST_MISS, NUMERICAL_TROUBLE,
-                         OPTIMAL, Trajectory)
-from .vehicle import Vehicle
+from codegen.model import tofsearch
+from codegen.errors import InputError
+from codegen.model.problem import DescentProblem, time_of_flight_bracket
+from codegen.model.trajectory import (BAD_INPUT, INFEASIBLE, ITERATION_LIMIT, LEAST_MISS, NUMERICAL_TROUBLE, OPTIMAL, Trajectory)
+from codegen.model.vehicle import Vehicle
 
 #: Clarabel settings for the reference: tighter than its defaults (1e-8).
 CLARABEL_TIGHT = {"tol_gap_abs": 1e-9, "tol_gap_rel": 1e-9, "tol_feas": 1e-9,

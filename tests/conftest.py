@@ -4,7 +4,7 @@ from pathlib import Path
 
 import pytest
 
-from codegen.vehicle import load_vehicle, parse_vehicle
+from codegen.model.vehicle import load_vehicle, parse_vehicle
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO_VEHICLE = ROOT / "examples" / "demo_vehicle.toml"

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import stats as sps
 
-from codegen.dispersions import COMPONENTS, load_dispersions, parse_dispersions
+from codegen.verify.dispersions import COMPONENTS, load_dispersions, parse_dispersions
 from codegen.errors import InputError
 from conftest import ROOT
 

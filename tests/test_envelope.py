@@ -1,7 +1,7 @@
 """Envelope campaigns: reproducible records, resume, engines, report, replay.
 
 These run on a dry-run tree (manifest backend "reference": the generated
-solver is the reference itself, see codegen.envelope.open_solvers), N = 10,
+solver is the reference itself, see codegen.verify.envelope.open_solvers), N = 10,
 and a few tens of cases, so they stay light.
 """
 
@@ -21,10 +21,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from codegen import cli, envelope as E
-from codegen.dispersions import load_dispersions
+from codegen import cli
+from codegen.verify import envelope as E
+from codegen.verify.dispersions import load_dispersions
 from codegen.errors import InputError
-from codegen.trajectory import OPTIMAL
+from codegen.model.trajectory import OPTIMAL
 from conftest import DEMO_VEHICLE, ROOT
 
 PDGC = [sys.executable, "-m", "codegen.cli"]

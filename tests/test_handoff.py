@@ -26,7 +26,7 @@ from pathlib import Path
 import pytest
 
 from codegen import cli
-from codegen import handoff as H
+from codegen.verify import handoff as H
 from codegen.errors import InputError
 from conftest import DEMO_VEHICLE, ROOT
 
@@ -221,7 +221,7 @@ def test_vectors_cover_the_envelope_and_the_refusals(built):
     statuses = re.findall(r"PDG_(OPTIMAL|INFEASIBLE|BAD_INPUT|ITERATION_LIMIT),", src)
     assert {"OPTIMAL", "INFEASIBLE", "BAD_INPUT", "ITERATION_LIMIT"} <= set(statuses)
     # Tolerances stated in the header are the project's check tolerances.
-    from codegen.check import TOLERANCES
+    from codegen.verify.check import TOLERANCES
     assert f"PDG_TV_FUEL_REL_FIXED {TOLERANCES['double']['objective_rel']!r}" in hdr
     assert f"PDG_TV_FUEL_REL_SEARCHED {TOLERANCES['double']['fuel_rel_search']!r}" in hdr
 

@@ -16,10 +16,10 @@ import subprocess
 import numpy as np
 import pytest
 
-from codegen.canonical import extract, flat_parameters
-from codegen.native import render
-from codegen.native.cbuild import STRICT_FLAGS, NativeSolver, compile_shared, write_sources
-from codegen.problem import DescentProblem
+from codegen.model.canonical import extract, flat_parameters
+from codegen.backends.native import render
+from codegen.backends.native.cbuild import (STRICT_FLAGS, NativeSolver, compile_shared, write_sources)
+from codegen.model.problem import DescentProblem
 
 pytestmark = pytest.mark.skipif(shutil.which("gcc") is None, reason="needs gcc")
 

@@ -1,5 +1,5 @@
 """The stage-periodic KKT ordering and its straight-line stage kernel
-(codegen/native/periodic.py, codegen/native/kernel.py).
+(codegen/backends/native/periodic.py, codegen/backends/native/kernel.py).
 
 The kernel is checked three ways: its range is periodic in the pattern of L
 itself (not only in the program the kernel was built from), programs without
@@ -12,14 +12,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from codegen.canonical import extract
-from codegen.native import describe, render
-from codegen.native.cbuild import NativeSolver, compile_shared
-from codegen.native.kernel import find_kernel
-from codegen.native.measure import dispersed
-from codegen.native.periodic import kkt_stages, variable_stages
-from codegen.native.symbolic import analyse
-from codegen.problem import DescentProblem
+from codegen.model.canonical import extract
+from codegen.backends.native import describe, render
+from codegen.backends.native.cbuild import NativeSolver, compile_shared
+from codegen.backends.native.kernel import find_kernel
+from codegen.backends.native.measure import dispersed
+from codegen.backends.native.periodic import kkt_stages, variable_stages
+from codegen.backends.native.symbolic import analyse
+from codegen.model.problem import DescentProblem
 
 from test_native_solver import FAMILIES, RandomFamily
 

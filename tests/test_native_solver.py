@@ -17,11 +17,11 @@ import scipy.sparse as sp
 
 clarabel = pytest.importorskip("clarabel")
 
-from codegen.canonical import AffineSparse, ConeProgram, extract, flat_parameters  # noqa: E402
+from codegen.model.canonical import AffineSparse, ConeProgram, extract, flat_parameters  # noqa: E402
 from codegen.errors import InputError  # noqa: E402
-from codegen.native import DEFAULTS, describe, real_literal, render  # noqa: E402
-from codegen.native.cbuild import NativeSolver, compile_shared  # noqa: E402
-from codegen.problem import DescentProblem, time_of_flight_bracket  # noqa: E402
+from codegen.backends.native import DEFAULTS, describe, real_literal, render  # noqa: E402
+from codegen.backends.native.cbuild import NativeSolver, compile_shared  # noqa: E402
+from codegen.model.problem import DescentProblem, time_of_flight_bracket  # noqa: E402
 
 SOLVED, INFEASIBLE, UNBOUNDED, MAX_ITER, NUMERICAL, SOLVED_REDUCED = range(6)
 CLARABEL_STATUS = {"Solved": SOLVED, "PrimalInfeasible": INFEASIBLE, "DualInfeasible": UNBOUNDED}
@@ -431,7 +431,7 @@ def test_two_workspaces_interleaved_are_independent(demo_vehicle, descent20):
 
 # ------------------------------------------------------------------- single precision
 def test_single_precision_meets_its_tolerance_on_demo(demo_vehicle, tmp_path_factory):
-    """Stated single-precision tolerances (codegen.native.DEFAULTS['single']):
+    """Stated single-precision tolerances (codegen.backends.native.DEFAULTS['single']):
     1e-4 relative on residuals and gap; checked here as objective error
     <= 1e-4 against Clarabel and the solver's own residuals <= 1e-4."""
     dp = DescentProblem(demo_vehicle, 50)        # the demo tree's horizon (Makefile)

@@ -9,11 +9,11 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from codegen.canonical import extract, flat_parameters
-from codegen.problem import KINDS, DescentProblem, time_of_flight_bracket
+from codegen.model.canonical import extract, flat_parameters
+from codegen.model.problem import KINDS, DescentProblem, time_of_flight_bracket
 from codegen.reference import ReferenceSolver
-from codegen.trajectory import BAD_INPUT, INFEASIBLE, LEAST_MISS, OPTIMAL
-from codegen.vehicle import G0_MPS2, parse_vehicle
+from codegen.model.trajectory import BAD_INPUT, INFEASIBLE, LEAST_MISS, OPTIMAL
+from codegen.model.vehicle import G0_MPS2, parse_vehicle
 from conftest import DEMO_STATE, paper_example_vehicle
 
 

@@ -15,11 +15,9 @@ import pytest
 from scipy.integrate import solve_ivp
 
 from codegen.errors import InputError
-from codegen.simerrors import ErrorModel, check_against_settings, load_errors, parse_errors
-from codegen.simulate import (Draw, Settings, TruthModel, default_settings, fly,
-                              load_guidance_solver, propagate, read_records, run_batch,
-                              write_dry_run_tree)
-from codegen.vehicle import G0_MPS2, load_vehicle
+from codegen.sim.error_model import (ErrorModel, check_against_settings, load_errors, parse_errors)
+from codegen.sim.simulate import (Draw, Settings, TruthModel, default_settings, fly, load_guidance_solver, propagate, read_records, run_batch, write_dry_run_tree)
+from codegen.model.vehicle import G0_MPS2, load_vehicle
 
 ROOT = Path(__file__).resolve().parent.parent
 VEHICLE = ROOT / "examples" / "demo_vehicle.toml"

@@ -13,8 +13,8 @@ import numpy as np
 import pytest
 
 from codegen.emit import generate
-from codegen.simerrors import ErrorModel, load_errors
-from codegen.simulate import default_settings, fly, load_guidance_solver, run_batch
+from codegen.sim.error_model import ErrorModel, load_errors
+from codegen.sim.simulate import default_settings, fly, load_guidance_solver, run_batch
 
 ROOT = Path(__file__).resolve().parent.parent
 VEHICLE = ROOT / "examples" / "demo_vehicle.toml"

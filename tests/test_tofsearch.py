@@ -1,4 +1,4 @@
-"""The time-of-flight search (codegen/tofsearch.py) and its C mirror.
+"""The time-of-flight search (codegen/model/tofsearch.py) and its C mirror.
 
 Synthetic costs stand in for the solver: a window of feasible times (an
 interval, as for the descent problem), a unimodal cost inside it, and solver
@@ -15,13 +15,13 @@ import subprocess
 import numpy as np
 import pytest
 
-from codegen import tofsearch
+from codegen.model import tofsearch
 from codegen.bind import cdef_text
 from codegen.emit import generate
 from codegen.errors import InputError
-from codegen.problem import Scaling, time_of_flight_bracket
+from codegen.model.problem import Scaling, time_of_flight_bracket
 from codegen.reference import ReferenceSolver
-from codegen.trajectory import INFEASIBLE, ITERATION_LIMIT, NUMERICAL_TROUBLE, Trajectory
+from codegen.model.trajectory import INFEASIBLE, ITERATION_LIMIT, NUMERICAL_TROUBLE, Trajectory
 from conftest import DEMO_STATE, DEMO_VEHICLE
 
 TOL = tofsearch.TOLERANCE_S

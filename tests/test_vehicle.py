@@ -5,7 +5,7 @@ import math
 import pytest
 
 from codegen.errors import InputError
-from codegen.vehicle import load_vehicle, parse_vehicle
+from codegen.model.vehicle import load_vehicle, parse_vehicle
 from conftest import DEMO_VEHICLE
 import tomllib
 

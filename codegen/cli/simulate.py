@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import sys
-from .cli import int_at_least
+from codegen.cli import int_at_least
 
 
 def _float(name):
@@ -60,9 +60,9 @@ def register(sub) -> None:
 
 
 def cmd_simulate(args) -> int:
-    from .cli import parse_state, parse_vector3, print_table
-    from .simerrors import ErrorModel, load_errors
-    from .simulate import default_settings, load_guidance_solver, run_batch
+    from codegen.cli import parse_state, parse_vector3, print_table
+    from codegen.sim.error_model import ErrorModel, load_errors
+    from codegen.sim.simulate import default_settings, load_guidance_solver, run_batch
 
     errors = load_errors(args.errors) if args.errors else ErrorModel()
     solver = load_guidance_solver(args.dir)

@@ -13,10 +13,10 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from .errors import InputError
-from .fsutil import read_toml
-from .errors import finite_number as _number
-from .errors import suggest_key as _suggest
+from codegen.errors import InputError
+from codegen.fsutil import read_toml
+from codegen.errors import finite_number as _number
+from codegen.errors import suggest_key as _suggest
 
 #: Standard gravity, exact by definition (3rd CGPM, 1901; BIPM SI Brochure).
 G0_MPS2 = 9.80665

@@ -56,7 +56,7 @@ from __future__ import annotations
 
 import math
 
-from .errors import InputError
+from codegen.errors import InputError
 
 GRID_POINTS = 9
 GRID_REFINEMENTS = 3

@@ -17,9 +17,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .problem import time_of_flight_bracket
-from .reference import ReferenceSolver
-from .trajectory import OPTIMAL
+from codegen.model.problem import time_of_flight_bracket
+from codegen.reference import ReferenceSolver
+from codegen.model.trajectory import OPTIMAL
 
 #: Stated tolerances by precision: relative objective error (fixed time of
 #: flight), relative fuel error (searched time of flight, where the two
@@ -159,9 +159,9 @@ def summarise(results: list, tol: dict) -> dict:
 
 
 def run_check(args) -> int:
-    from .bind import load_solver
-    from .cli import print_table
-    from .problem import Scaling
+    from codegen.bind import load_solver
+    from codegen.cli import print_table
+    from codegen.model.problem import Scaling
 
     gen = load_solver(args.dir)
     vehicle = gen.vehicle
@@ -205,7 +205,7 @@ def run_check(args) -> int:
     if len(failed) > 20:
         print(f"... and {len(failed) - 20} more failing cases")
     if args.json:
-        from .fsutil import write_atomic
+        from codegen.fsutil import write_atomic
         payload = {"summary": s, "cases": [
             {"index": r.case.index, "kind": r.case.kind, "position_m": r.case.position_m,
              "velocity_mps": r.case.velocity_mps, "mass_kg": r.case.mass_kg,

@@ -12,7 +12,7 @@ from pathlib import Path
 import cffi
 import numpy as np
 
-from ..fsutil import write_atomic
+from codegen.fsutil import write_atomic
 
 STRICT_FLAGS = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wshadow", "-Werror"]
 

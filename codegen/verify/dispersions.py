@@ -45,10 +45,10 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
-from .errors import InputError
-from .fsutil import read_toml
-from .errors import finite_number as _number
-from .errors import suggest_key as _suggest
+from codegen.errors import InputError
+from codegen.fsutil import read_toml
+from codegen.errors import finite_number as _number
+from codegen.errors import suggest_key as _suggest
 
 DISTRIBUTIONS = {
     "fixed": ("value",),

@@ -110,12 +110,12 @@ from pathlib import Path
 
 import numpy as np
 
-from . import __version__
-from .errors import InputError
-from .fsutil import complete_lines, write_atomic
-from .simerrors import ErrorModel, check_against_settings
-from .trajectory import BAD_INPUT
-from .vehicle import Vehicle, load_vehicle
+from codegen import __version__
+from codegen.errors import InputError
+from codegen.fsutil import complete_lines, write_atomic
+from codegen.sim.error_model import ErrorModel, check_against_settings
+from codegen.model.trajectory import BAD_INPUT
+from codegen.model.vehicle import Vehicle, load_vehicle
 
 #: A run that has not touched the ground this long after the planned
 #: touchdown time is stopped (status ``no_contact``).
@@ -169,7 +169,7 @@ def load_guidance_solver(solver_dir):
     if not isinstance(manifest, dict):
         raise InputError(str(man_path), manifest, "must hold a JSON object")
     if manifest.get("backend") == "reference":
-        from .reference import ReferenceSolver
+        from codegen.reference import ReferenceSolver
         horizon = manifest.get("horizon")
         if isinstance(horizon, bool) or not isinstance(horizon, int) or horizon < 2:
             raise InputError(f"{man_path}: horizon", horizon, "must be an integer >= 2")
@@ -177,7 +177,7 @@ def load_guidance_solver(solver_dir):
         solver.name = "reference (dry run)"
         return solver
     try:
-        from .bind import load_solver
+        from codegen.bind import load_solver
     except ModuleNotFoundError as exc:
         if exc.name != "codegen.bind":
             raise
@@ -895,7 +895,7 @@ def _figures(records, vehicle: Vehicle, target_m) -> list:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    from .report import figure_png_base64
+    from codegen.report import figure_png_base64
 
     landed = [r for r in records if r["status"] == LANDED]
     tx, ty = target_m[0], target_m[1]
@@ -973,7 +973,7 @@ def _figures(records, vehicle: Vehicle, target_m) -> list:
 def write_report(path, records, summary: dict, vehicle: Vehicle, errors: ErrorModel,
                  settings: Settings) -> None:
     """The batch as one self-contained HTML file (images inline)."""
-    from .report import esc, image, page, table
+    from codegen.report import esc, image, page, table
 
     b = summary.get("batch", {})
     intro = (f"<p>{esc(summary['runs'])} runs of the closed loop on <code>{esc(vehicle.name)}</code> "

@@ -1,6 +1,6 @@
 """Figures of the native solver core alone (not a benchmark suite; no asserts).
 
-    .venv/bin/python -m codegen.native.measure 20 50 100 [--precision single] [--cases 200]
+    .venv/bin/python -m codegen.backends.native.measure 20 50 100 [--precision single] [--cases 200]
 
 For each horizon N on the demo vehicle: generation and compile seconds
 (gcc -O2), source bytes, nnz of KKT and L, solve time on the nominal demo
@@ -23,13 +23,14 @@ from pathlib import Path
 import numpy as np
 import scipy.sparse as sp
 
-from ..canonical import extract, flat_parameters
-from ..problem import DescentProblem, time_of_flight_bracket
-from ..vehicle import load_vehicle
-from . import describe, render
-from .cbuild import NativeSolver, compile_shared
+from codegen.model.canonical import extract, flat_parameters
+from codegen.model.problem import DescentProblem, time_of_flight_bracket
+from codegen.model.vehicle import load_vehicle
+from codegen.fsutil import REPO_DIR
+from codegen.backends.native import describe, render
+from codegen.backends.native.cbuild import NativeSolver, compile_shared
 
-DEMO = Path(__file__).resolve().parent.parent.parent / "examples" / "demo_vehicle.toml"
+DEMO = REPO_DIR / "examples" / "demo_vehicle.toml"
 STATUS = {"Solved": 0, "PrimalInfeasible": 1, "DualInfeasible": 2}
 
 

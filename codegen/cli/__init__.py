@@ -6,10 +6,11 @@ import argparse
 import sys
 from pathlib import Path
 
-from . import __version__
-from .errors import InputError
+from codegen import __version__
+from codegen.errors import InputError
+from codegen.fsutil import REPO_DIR
 
-DEMO_VEHICLE = Path(__file__).resolve().parent.parent / "examples" / "demo_vehicle.toml"
+DEMO_VEHICLE = REPO_DIR / "examples" / "demo_vehicle.toml"
 
 
 def _demo_vehicle_text() -> str:
@@ -63,7 +64,7 @@ def positive_int(name):
 
 
 def cmd_init(args) -> int:
-    from .fsutil import write_atomic
+    from codegen.fsutil import write_atomic
     out = Path(args.dir) / "vehicle.toml"
     if out.exists() and not args.force:
         print(f"pdgc: {out} exists; use --force to overwrite", file=sys.stderr)
@@ -81,9 +82,9 @@ def print_table(rows, out=None):
 
 
 def cmd_solve(args) -> int:
-    from .analysis import margins
-    from .reference import ReferenceSolver
-    from .vehicle import load_vehicle
+    from codegen.model.analysis import margins
+    from codegen.reference import ReferenceSolver
+    from codegen.model.vehicle import load_vehicle
 
     vehicle = load_vehicle(args.vehicle)
     for w in vehicle.warnings:
@@ -91,7 +92,7 @@ def cmd_solve(args) -> int:
     pos, vel, mass = parse_state(args.state)
     target = parse_vector3("--target", args.target) if args.target else (0.0, 0.0, 0.0)
     if args.solver_dir:
-        from .bind import load_solver
+        from codegen.bind import load_solver
         solver = load_solver(args.solver_dir)
         if solver.horizon != args.horizon and args.horizon_given:
             raise InputError("--horizon", args.horizon,
@@ -130,7 +131,7 @@ def cmd_solve(args) -> int:
         print_table(rows)
     if args.plot:
         if traj.solved:
-            from .plot import plot_trajectory
+            from codegen.plot import plot_trajectory
             plot_trajectory(traj, vehicle, args.plot, target)
             if not args.json:
                 print(f"  plot written to {args.plot}")
@@ -177,8 +178,8 @@ _EXTRA_COMMANDS = []
 def _load_extras():
     import importlib
     _EXTRA_COMMANDS.clear()
-    for mod in ("codegen.cli_generate", "codegen.cli_envelope", "codegen.cli_simulate",
-                "codegen.cli_handoff"):
+    for mod in ("codegen.cli.generate", "codegen.cli.envelope", "codegen.cli.simulate",
+                "codegen.cli.handoff"):
         try:
             m = importlib.import_module(mod)
         except ModuleNotFoundError as exc:

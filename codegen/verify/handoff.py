@@ -3,7 +3,7 @@
 From a generated NATIVE tree (the backend meant to fly: heap-free, reentrant,
 C99) this writes a directory and a ``.tar.gz`` of it holding the generated
 sources, build files (make, CMake), the example, test vectors with a C runner
-(:mod:`codegen.vectors`), and a verification record (Markdown and HTML). The
+(:mod:`codegen.verify.vectors`), and a verification record (Markdown and HTML). The
 target checks run here, on a scratch copy of the package, with the package's
 own Makefile where one exists:
 
@@ -40,9 +40,10 @@ import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from . import __version__, tofsearch
-from .emit import c_literal, environment, read_manifest, verify_tree
-from .errors import InputError
+from codegen import __version__
+from codegen.model import tofsearch
+from codegen.emit import c_literal, environment, read_manifest, verify_tree
+from codegen.errors import InputError
 
 STRICT_FLAGS = "-std=c99 -Wall -Wextra -Wpedantic -Wshadow -Wconversion -Werror"
 RELAXED_FLAGS = "-std=c99 -Wall -Wextra -Werror"
@@ -161,7 +162,7 @@ def open_tree(tree_dir) -> dict:
 
 def read_campaign(run_dir, tree_dir) -> dict:
     """The envelope campaign's JSON summary, checked to belong to this tree."""
-    from .envelope import summarise
+    from codegen.verify.envelope import summarise
     run_dir = Path(run_dir)
     man_path = run_dir / "manifest.json"
     try:
@@ -526,7 +527,7 @@ def run_checks(pkg_files: dict, manifest: dict, tree_dir, vector_count: int, say
             say("Cortex-M7 builds")
             if manifest["precision"] == "double":
                 ck.m7["double"] = _m7_build(work, manifest, M7_DP_FLAGS, "dp")
-                from .emit import generate
+                from codegen.emit import generate
                 single_dir = scratch / "single"
                 generate(Path(tree_dir) / "vehicle.toml", manifest["horizon"], single_dir,
                          backend="native", prefix=prefix, precision="single")
@@ -577,10 +578,10 @@ def _parse_gcov(out: str) -> list:
 def run_solver_check(tree_dir, cases: int, seed: int, say) -> dict:
     """`pdgc check`'s comparison (generated solver through cffi against the reference)
     on ``cases`` dispersed cases; timings are left out (they belong to the machine)."""
-    from .bind import load_solver
-    from .check import TOLERANCES, compare, draw_cases, summarise
-    from .problem import Scaling
-    from .reference import ReferenceSolver
+    from codegen.bind import load_solver
+    from codegen.verify.check import TOLERANCES, compare, draw_cases, summarise
+    from codegen.model.problem import Scaling
+    from codegen.reference import ReferenceSolver
     say(f"pdgc check: {cases} cases, seed {seed}")
     gen = load_solver(tree_dir)
     vehicle = gen.vehicle
@@ -674,7 +675,7 @@ def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, camp
               _sha256(files["generation-manifest.json"]))]
     sec.append({"title": "Identification", "blocks": [_table(("item", "value"), ident)]})
 
-    from .vehicle import VEHICLE_KEYS
+    from codegen.model.vehicle import VEHICLE_KEYS
     vrows = [(k, getattr(vehicle, k), VEHICLE_KEYS[k][1]) for k in VEHICLE_KEYS]
     env = vehicle.envelope
     for k in ("position_min_m", "position_max_m", "velocity_min_mps", "velocity_max_mps",
@@ -966,7 +967,7 @@ def _campaign_blocks(s: dict) -> list:
 
 def render_record(sections: list, title: str, intro: list) -> tuple:
     """(Markdown, HTML) of the record."""
-    from . import report as R
+    from codegen import report as R
     env = environment()
     md = env.get_template("handoff/record.md.j2").render(
         title=title, intro=intro, sections=[{"title": s["title"], "blocks": [
@@ -1031,7 +1032,7 @@ def tar_gz_bytes(root_name: str, files: dict) -> bytes:
 
 def _write_package(out_dir: Path, files: dict) -> Path:
     """Directory beside out_dir, renamed into place; then the tarball (atomic)."""
-    from .fsutil import write_atomic, swap_in_directory
+    from codegen.fsutil import write_atomic, swap_in_directory
     out_dir = out_dir.resolve()
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     if out_dir.exists():
@@ -1057,8 +1058,8 @@ def _write_package(out_dir: Path, files: dict) -> Path:
 def handoff(tree_dir, out_dir, campaign=None, checks: bool = True, progress=None,
             check_cases: int = 50, check_seed: int = 1) -> dict:
     """Write the package; returns a summary dict (paths, vector count, check results)."""
-    from .vectors import build_vectors, tolerances
-    from .vehicle import load_vehicle
+    from codegen.verify.vectors import build_vectors, tolerances
+    from codegen.model.vehicle import load_vehicle
     say = progress or (lambda msg: None)
     tree_dir = Path(tree_dir)
     manifest = open_tree(tree_dir)

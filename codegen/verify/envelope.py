@@ -1,6 +1,6 @@
 """Envelope campaign: a dispersed Monte Carlo run of a generated solver.
 
-A campaign draws N cases from a dispersion file (:mod:`codegen.dispersions`),
+A campaign draws N cases from a dispersion file (:mod:`codegen.verify.dispersions`),
 solves every case with the generated solver and, on every M-th case and on
 every case whose status or iteration count stands out, with the reference too.
 Each finished case is one JSON line appended to ``RUN_DIR/results.jsonl``
@@ -33,11 +33,11 @@ from collections import deque
 from dataclasses import dataclass, replace
 from pathlib import Path
 
-from . import __version__
-from .dispersions import Dispersions
-from .errors import InputError
-from .fsutil import complete_lines, write_atomic
-from .trajectory import OPTIMAL, SOLVED
+from codegen import __version__
+from codegen.verify.dispersions import Dispersions
+from codegen.errors import InputError
+from codegen.fsutil import PACKAGE_DIR, complete_lines, write_atomic
+from codegen.model.trajectory import OPTIMAL, SOLVED
 
 RUN_FORMAT = "pdgc-envelope-run/1"
 RESULTS_NAME = "results.jsonl"
@@ -99,8 +99,8 @@ def open_solvers(solver_dir, thrust_derate: float | None = None):
     naming the field) unless it declares ``supports_thrust_derate`` and offers
     ``derated(fraction) -> solver``.
     """
-    from .reference import ReferenceSolver
-    from .vehicle import load_vehicle
+    from codegen.reference import ReferenceSolver
+    from codegen.model.vehicle import load_vehicle
 
     man = read_tree(solver_dir)
     vehicle = load_vehicle(Path(solver_dir) / "vehicle.toml")
@@ -122,7 +122,7 @@ def open_solvers(solver_dir, thrust_derate: float | None = None):
 def _load_generated(solver_dir, man):
     """The compiled solver of a generated tree (codegen.bind)."""
     try:
-        from .bind import load_solver
+        from codegen.bind import load_solver
     except ModuleNotFoundError as exc:
         if exc.name != "codegen.bind":
             raise
@@ -462,7 +462,7 @@ def code_sha256() -> str:
     parameter map live there): a run resumed under other code is flagged."""
     import hashlib
     h = hashlib.sha256()
-    pkg = Path(__file__).resolve().parent
+    pkg = PACKAGE_DIR
     for f in sorted(pkg.rglob("*.py")):
         h.update(str(f.relative_to(pkg)).encode() + b"\0" + f.read_bytes() + b"\0")
     return h.hexdigest()
@@ -496,12 +496,12 @@ def prepare_run(run_dir, solver_dir, dispersions: Dispersions, dispersions_path,
                          "must be an integer >= 0 (0: only on cases that stand out)")
     if stand_out_iterations is not None and stand_out_iterations < 1:
         raise InputError("--stand-out-iterations", stand_out_iterations, "must be an integer >= 1")
-    from .vehicle import load_vehicle
+    from codegen.model.vehicle import load_vehicle
     solver_dir = str(Path(solver_dir).resolve())
     tree = read_tree(solver_dir)
     vehicle = load_vehicle(Path(solver_dir) / "vehicle.toml")
     # Check the dispersions against the tree's vehicle (mass range).
-    from .dispersions import parse_dispersions
+    from codegen.verify.dispersions import parse_dispersions
     parse_dispersions(_as_file_dict(dispersions), vehicle)
     check_derate_supported(solver_dir, dispersions)
 
@@ -582,7 +582,7 @@ def run_campaign(run_dir, manifest: dict, workers: int = 1, scheduler: str | Non
         duplicates += r["case"] in done
         done.add(r["case"])
     todo = [i for i in range(manifest["cases"]) if i not in done]
-    from .dispersions import parse_dispersions
+    from codegen.verify.dispersions import parse_dispersions
     disp = parse_dispersions(_as_file_dict(manifest["dispersions"]))
     ctx = CaseContext(solver_dir=manifest["solver_dir"], dispersions=disp,
                       reference_every=manifest["reference_every"],
@@ -833,7 +833,7 @@ def _figures(records) -> dict:
     import matplotlib.ticker
     import numpy as np
 
-    from .report import figure_png_base64
+    from codegen.report import figure_png_base64
 
     figs = {}
     gens = [r["generated"] for r in records]
@@ -924,7 +924,7 @@ def _figures(records) -> dict:
 
 def render_report(summary: dict, records: list, manifest: dict) -> str:
     """report.html as text: self-contained, images inline."""
-    from . import report as R
+    from codegen import report as R
 
     figs = _figures(records) if records else {}
     g = summary["generated"]
@@ -1003,7 +1003,7 @@ def render_report(summary: dict, records: list, manifest: dict) -> str:
                         for s in summary["sessions"]], text_columns=(0, 1))
     disp = manifest["dispersions"]
     disp_rows = []
-    from .dispersions import parse_distribution
+    from codegen.verify.dispersions import parse_distribution
     for table_name in ("position_m", "velocity_mps"):
         for axis, d in disp[table_name].items():
             disp_rows.append([f"{table_name}.{axis}", parse_distribution("x", d).describe()])

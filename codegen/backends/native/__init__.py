@@ -1,15 +1,15 @@
 """Native backend: our own static-memory interior-point SOCP solver, as C.
 
-``render(prog)`` turns a :class:`codegen.canonical.ConeProgram` into the text
+``render(prog)`` turns a :class:`codegen.model.canonical.ConeProgram` into the text
 of ``{prefix}_socp.h`` and ``{prefix}_socp.c``: a primal-dual interior-point
 method (homogeneous self-dual embedding, Nesterov-Todd scaling, Mehrotra
 predictor-corrector) over a sparse LDL' of the KKT system whose ordering and
 symbolic factorisation are done here, in Python, at generation time
-(:mod:`codegen.native.symbolic`). The C runs loops over the ``const``
+(:mod:`codegen.backends.native.symbolic`). The C runs loops over the ``const``
 index arrays emitted here; its size grows with the number of nonzeros only
 through those arrays. For a time-staged program with a stage-periodic
 ordering, one interior stage's factorisation and sweeps are also emitted as
-straight-line code (:mod:`codegen.native.kernel`), called once per stage:
+straight-line code (:mod:`codegen.backends.native.kernel`), called once per stage:
 a constant amount of code, independent of the horizon.
 
 The C API (PREFIX = prefix.upper()) is described in the generated header:
@@ -26,15 +26,16 @@ from pathlib import Path
 import jinja2
 import numpy as np
 
-from ..canonical import ConeProgram
-from ..errors import InputError
-from .kernel import context as kernel_context
-from .periodic import kkt_stages, variable_stages
-from .symbolic import KKTSymbolic, analyse
+from codegen.model.canonical import ConeProgram
+from codegen.errors import InputError
+from codegen.fsutil import TEMPLATES_DIR
+from codegen.backends.native.kernel import context as kernel_context
+from codegen.backends.native.periodic import kkt_stages, variable_stages
+from codegen.backends.native.symbolic import KKTSymbolic, analyse
 
-TEMPLATE_DIR = Path(__file__).resolve().parent.parent.parent / "templates" / "native"
+TEMPLATE_DIR = TEMPLATES_DIR / "native"
 
-#: Default KKT ordering by precision (see codegen.native.symbolic).
+#: Default KKT ordering by precision (see codegen.backends.native.symbolic).
 DEFAULT_ORDERING = {"double": "auto", "single": "staged"}
 
 #: Compile-time cap on the iteration limit (the setting is clamped to it).
@@ -46,7 +47,7 @@ MAX_ITER_CAP = 200
 #: number grows like 1/mu near the optimum, so feasibility, gap and
 #: infeasibility are asked to 1e-4 relative, with much stronger
 #: regularisation (1e-4, pivots below 1e-5 replaced by 1e-3, up to 10
-#: refinement steps) and the "staged" ordering (codegen.native.symbolic).
+#: refinement steps) and the "staged" ordering (codegen.backends.native.symbolic).
 #: Measured on the demo (N = 20 and 50, dispersed states): objective within
 #: 2e-5 of Clarabel when solved, but about 1 feasible state in 5 and
 #: infeasible ones more often end NUMERICAL (never a wrong verdict seen).

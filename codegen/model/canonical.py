@@ -5,7 +5,7 @@
                 G x + s = h,   s in K = R+^l x Q^q1 x ... x Q^qk
 
 Every nonzero of (c, d, A, b, G, h) is an affine function of the flat
-parameter vector p of :data:`codegen.problem.PARAMETERS` (in that order):
+parameter vector p of :data:`codegen.model.problem.PARAMETERS` (in that order):
 ``values = map @ [p; 1]``. The sparsity patterns are fixed (explicit zeros
 kept), so code generated from a :class:`ConeProgram` can apply the map with
 plain loops over constant index arrays.
@@ -24,7 +24,7 @@ import cvxpy as cp
 import numpy as np
 import scipy.sparse as sp
 
-from .problem import DescentProblem
+from codegen.model.problem import DescentProblem
 
 
 @dataclass(frozen=True)

@@ -6,8 +6,8 @@ import math
 
 import numpy as np
 
-from .trajectory import Trajectory
-from .vehicle import Vehicle
+from codegen.model.trajectory import Trajectory
+from codegen.model.vehicle import Vehicle
 
 
 def margins(traj: Trajectory, vehicle: Vehicle, target_m=(0.0, 0.0, 0.0)) -> dict:

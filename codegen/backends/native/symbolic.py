@@ -1,6 +1,6 @@
 """Generation-time symbolic work for the native SOCP solver's KKT system.
 
-The interior-point method of :mod:`codegen.native` solves, at every
+The interior-point method of :mod:`codegen.backends.native` solves, at every
 iteration, a quasi-definite system with the fixed sparsity pattern
 
     [ 0   A'  G'      ]   n rows    (static regularisation +eps)
@@ -19,7 +19,7 @@ Orderings tried (the smaller nnz(L) wins; ties go to the first):
    exact degrees, lazy heap, ties broken by index), and
  - reverse Cuthill-McKee (scipy.sparse.csgraph), a banded ordering that
    suits the time-stage structure.
-"periodic" (given the stage of every node; codegen.native.periodic) orders
+"periodic" (given the stage of every node; codegen.backends.native.periodic) orders
 stage by stage with one local order, for the straight-line stage kernel.
 "staged" instead constrains minimum fill to eliminate the cone rows first,
 then x, then y: pivots never need the tiny static regularisation of the x
@@ -59,7 +59,7 @@ class KKTSymbolic:
     Rj: np.ndarray
     ordering: str
     nnz_L_tried: dict           # ordering name -> nnz(L)
-    kernel: object = None       # codegen.native.kernel.StageKernel of a periodic ordering
+    kernel: object = None       # codegen.backends.native.kernel.StageKernel of a periodic ordering
 
     @property
     def nnz_kkt(self) -> int:
@@ -267,10 +267,10 @@ def analyse(n: int, p: int, m: int, A_indptr, A_indices, G_indptr, G_indices,
             nonneg: int, soc, ordering: str = "auto", stages=None) -> KKTSymbolic:
     """Order, permute and symbolically factor the KKT pattern.  ``stages``
     (optional): the time stage of every KKT node (x, y, z in original
-    order), which enables the "periodic" ordering (codegen.native.periodic)
-    and its straight-line stage kernel (codegen.native.kernel)."""
-    from .kernel import find_kernel
-    from .periodic import periodic_ordering
+    order), which enables the "periodic" ordering (codegen.backends.native.periodic)
+    and its straight-line stage kernel (codegen.backends.native.kernel)."""
+    from codegen.backends.native.kernel import find_kernel
+    from codegen.backends.native.periodic import periodic_ordering
     dim = n + p + m
     entries = kkt_upper_entries(n, p, m, A_indptr, A_indices, G_indptr, G_indices, nonneg, soc)
     adj = _adjacency(dim, entries)

@@ -1,5 +1,5 @@
 """Straight-line C for the factorisation and the triangular sweeps of one
-interior stage of a stage-periodic KKT ordering (codegen.native.periodic).
+interior stage of a stage-periodic KKT ordering (codegen.backends.native.periodic).
 
 For each stage s the work of the up-looking LDL' (and of the two sweeps) is
 written down as a list of operations on absolute indices; subtracting the

@@ -25,10 +25,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .check import TOLERANCES, draw_cases
-from .problem import Scaling, time_of_flight_bracket
-from .reference import ReferenceSolver
-from .trajectory import BAD_INPUT, INFEASIBLE, ITERATION_LIMIT, OPTIMAL
+from codegen.verify.check import TOLERANCES, draw_cases
+from codegen.model.problem import Scaling, time_of_flight_bracket
+from codegen.reference import ReferenceSolver
+from codegen.model.trajectory import BAD_INPUT, INFEASIBLE, ITERATION_LIMIT, OPTIMAL
 
 #: Seed of the few dispersed inside points (fixed: the vectors are the same every run).
 INSIDE_SEED = 20260

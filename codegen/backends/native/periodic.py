@@ -8,7 +8,7 @@ local order in every interior stage, the pattern of L is periodic over those
 stages: the rows of stage s+1 are those of stage s shifted by a constant P
 in index, Q in positions of L and R in positions of the KKT values.  Then
 the numeric work of one interior stage can be emitted once as straight-line
-C with constant offsets from base pointers (codegen.native.kernel).
+C with constant offsets from base pointers (codegen.backends.native.kernel).
 
 Everything here is generation-time Python; nothing here is trusted without a
 check: ``periodic_range`` compares the work of every stage, entry by entry
@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .symbolic import minimum_fill
+from codegen.backends.native.symbolic import minimum_fill
 
 
 def variable_stages(prog) -> np.ndarray | None:

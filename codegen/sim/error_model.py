@@ -45,10 +45,10 @@ from __future__ import annotations
 import math
 from dataclasses import asdict, dataclass
 
-from .errors import InputError
-from .fsutil import read_toml
-from .errors import finite_number as _number
-from .errors import suggest_key as _suggest
+from codegen.errors import InputError
+from codegen.fsutil import read_toml
+from codegen.errors import finite_number as _number
+from codegen.errors import suggest_key as _suggest
 
 # table -> key -> (kind, description). kind: "vec" (three spreads >= 0),
 # "vec_any" (three numbers), "nonneg", "bool", "positive".

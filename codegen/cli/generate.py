@@ -6,9 +6,9 @@ import sys
 
 
 def register(sub) -> None:
-    from .backends import DEFAULT_BACKEND
-    from .cli import positive_int
-    from .emit import DEFAULT_PREFIX
+    from codegen.backends import DEFAULT_BACKEND
+    from codegen.cli import positive_int
+    from codegen.emit import DEFAULT_PREFIX
 
     s = sub.add_parser("generate", help="generate a C guidance solver tree")
     s.add_argument("vehicle")
@@ -33,7 +33,7 @@ def register(sub) -> None:
 
 
 def cmd_generate(args) -> int:
-    from .emit import generate
+    from codegen.emit import generate
 
     def say(msg):
         print(f"pdgc: {msg}", file=sys.stderr)
@@ -46,5 +46,5 @@ def cmd_generate(args) -> int:
 
 
 def cmd_check(args) -> int:
-    from .check import run_check
+    from codegen.verify.check import run_check
     return run_check(args)

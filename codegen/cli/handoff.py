@@ -29,7 +29,7 @@ def register(subparsers) -> None:
 
 
 def cmd_handoff(args) -> int:
-    from .handoff import handoff
+    from codegen.verify.handoff import handoff
 
     def say(msg):
         print(f"pdgc handoff: {msg}", file=sys.stderr)

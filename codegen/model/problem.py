@@ -34,7 +34,7 @@ from functools import cached_property
 import cvxpy as cp
 import numpy as np
 
-from .vehicle import Vehicle
+from codegen.model.vehicle import Vehicle
 
 KINDS = ("fuel", "miss", "fuel_within")
 
@@ -186,7 +186,7 @@ class DescentProblem:
         if kind not in KINDS:
             raise ValueError(f"kind = {kind!r}: must be one of {', '.join(KINDS)}")
         if not isinstance(horizon, int) or isinstance(horizon, bool) or horizon < 2:
-            from .errors import InputError
+            from codegen.errors import InputError
             raise InputError("horizon", horizon, "must be an integer >= 2")
         self.vehicle = vehicle
         self.horizon = horizon

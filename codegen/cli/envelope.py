@@ -6,8 +6,8 @@ import os
 import sys
 from pathlib import Path
 
-from .errors import InputError
-from .cli import int_at_least
+from codegen.errors import InputError
+from codegen.cli import int_at_least
 
 
 def register(subparsers) -> None:
@@ -43,9 +43,9 @@ def register(subparsers) -> None:
 
 
 def cmd_envelope(args) -> int:
-    from . import envelope as E
-    from .dispersions import load_dispersions
-    from .vehicle import load_vehicle
+    from codegen.verify import envelope as E
+    from codegen.verify.dispersions import load_dispersions
+    from codegen.model.vehicle import load_vehicle
 
     tree = E.read_tree(args.dir)
     vehicle = load_vehicle(Path(args.dir) / "vehicle.toml")
