@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from codegen.backends.native.symbolic import minimum_fill
+from codegen.backends.native.orderings import minimum_fill
 
 
 def variable_stages(prog) -> np.ndarray | None:
