@@ -22,7 +22,8 @@ import numpy as np
 import pytest
 
 from codegen import cli
-from codegen.verify import envelope as E
+from codegen.verify.envelope import cases as ecases, records as erecords, report as ereport
+from codegen.verify.envelope import run as erun, solvers as esolvers, summary as esummary
 from codegen.verify.dispersions import load_dispersions
 from codegen.errors import InputError
 from codegen.model.trajectory import OPTIMAL
@@ -72,13 +73,13 @@ def setup(tmp_path_factory):
 
 def run_inprocess(run_dir, tree, disp, cases=CASES, workers=1, scheduler=None, every=EVERY):
     d = load_dispersions(disp)
-    man = E.prepare_run(run_dir, tree, d, disp, cases, every, None)
-    E.run_campaign(run_dir, man, workers=workers, scheduler=scheduler, progress=False)
+    man = erun.prepare_run(run_dir, tree, d, disp, cases, every, None)
+    erun.run_campaign(run_dir, man, workers=workers, scheduler=scheduler, progress=False)
     return man
 
 
 def records_of(run_dir):
-    lines = (Path(run_dir) / E.RESULTS_NAME).read_text().splitlines()
+    lines = (Path(run_dir) / erecords.RESULTS_NAME).read_text().splitlines()
     recs = [json.loads(x) for x in lines]
     return sorted(recs, key=lambda r: r["case"]), len(lines)
 
@@ -94,7 +95,7 @@ def straight_run(setup):
 
 
 def stripped(recs):
-    return [E.strip_measured(r) for r in recs]
+    return [ecases.strip_measured(r) for r in recs]
 
 
 def test_every_case_once_with_reference_where_due(straight_run):
@@ -125,7 +126,7 @@ def test_resume_after_kill_matches_uninterrupted_run(setup, straight_run):
     run = base / "killed"
     cmd = PDGC + ["envelope", str(tree), "--dispersions", str(disp), "--cases", str(CASES),
                   "--reference-every", str(EVERY), "--workers", "2", "--out", str(run)]
-    results = run / E.RESULTS_NAME
+    results = run / erecords.RESULTS_NAME
     proc = subprocess.Popen(cmd, start_new_session=True, stdout=subprocess.DEVNULL,
                             stderr=subprocess.DEVNULL, cwd=ROOT)
     try:
@@ -152,7 +153,7 @@ def test_resume_after_kill_matches_uninterrupted_run(setup, straight_run):
     assert lines == CASES                          # no case twice, torn line gone
     assert [r["case"] for r in recs] == list(range(CASES))
     assert stripped(recs) == stripped(expected)
-    man = json.loads((run / E.MANIFEST_NAME).read_text())
+    man = json.loads((run / erecords.MANIFEST_NAME).read_text())
     assert sum(s["ran"] for s in man["sessions"]) == CASES - done_at_kill
 
 
@@ -168,7 +169,7 @@ def test_dask_cluster_gives_the_same_records(setup, straight_run):
     recs, lines = records_of(run)
     assert lines == CASES
     assert stripped(recs) == stripped(expected)
-    man = json.loads((run / E.MANIFEST_NAME).read_text())
+    man = json.loads((run / erecords.MANIFEST_NAME).read_text())
     assert man["sessions"][0]["engine"].startswith("dask scheduler tcp://127.0.0.1:")
 
 
@@ -177,16 +178,16 @@ def test_resume_refuses_a_different_campaign(setup, straight_run):
     run, man, _ = straight_run
     d = load_dispersions(disp).with_seed(12)
     with pytest.raises(InputError) as err:
-        E.prepare_run(run, tree, d, disp, CASES, EVERY, None)
+        erun.prepare_run(run, tree, d, disp, CASES, EVERY, None)
     assert err.value.field == "seed"
     with pytest.raises(InputError) as err:
-        E.prepare_run(run, tree, load_dispersions(disp), disp, CASES, EVERY + 1, None)
+        erun.prepare_run(run, tree, load_dispersions(disp), disp, CASES, EVERY + 1, None)
     assert err.value.field == "reference_every"
 
 
 def test_summary_matches_records(straight_run):
     run, man, recs = straight_run
-    s = E.summarise(run, worst=3)
+    s = esummary.summarise(run, worst=3)
     assert s["cases_done"] == CASES and s["complete"]
     assert sum(s["generated"]["status_counts"].values()) == CASES
     it = np.array([r["generated"]["iterations_max"] for r in recs])
@@ -202,9 +203,6 @@ def test_summary_matches_records(straight_run):
 
 
 def run_cli(argv):
-    # cli.main() registers the stage sub-commands on each call; in one process
-    # the second call would register them twice, so start from none.
-    cli._EXTRA_COMMANDS.clear()
     return cli.main(argv)
 
 
@@ -225,7 +223,7 @@ def test_worst_cases_replay_to_the_same_status_and_iterations(setup, straight_ru
     else:   # the invented demo dispersions: time of flight searched
         run = base / "searched"
         run_inprocess(run, tree, ROOT / "examples" / "demo_dispersions.toml", cases=6, every=3)
-    s = E.summarise(run, worst=2)
+    s = esummary.summarise(run, worst=2)
     by_case = {r["case"]: r for r in records_of(run)[0]}
     assert s["worst_cases"]
     for w in s["worst_cases"][:4]:
@@ -247,7 +245,7 @@ def chromium():
 
 def test_report_renders_in_headless_chromium(tmp_path, straight_run):
     run = straight_run[0]
-    s = E.write_report(run, worst=3)
+    s = ereport.write_report(run, worst=3)
     assert json.loads((run / "summary.json").read_text()) == json.loads(json.dumps(s))
     html = (run / "report.html").read_text()
     assert "http://" not in html and "https://" not in html   # self-contained
@@ -281,7 +279,7 @@ def test_derating_dry_run_and_refusal(tmp_path, setup, monkeypatch):
     recs, _ = records_of(run)
     assert all(0.6 <= r["inputs"]["thrust_derate"] <= 0.8 for r in recs)
     # Derated solves differ from full-thrust ones on the same inputs.
-    full, _ = E.open_solvers(tree)
+    full, _ = esolvers.open_solvers(tree)
     r0 = recs[0]
     args = (r0["inputs"]["position_m"], r0["inputs"]["velocity_mps"], r0["inputs"]["mass_kg"],
             r0["inputs"]["time_of_flight_s"])
@@ -293,9 +291,9 @@ def test_derating_dry_run_and_refusal(tmp_path, setup, monkeypatch):
     class Baked:
         name, horizon = "native", 10
 
-    monkeypatch.setattr(E, "_load_generated", lambda d, m: Baked())
+    monkeypatch.setattr(esolvers, "_load_generated", lambda d, m: Baked())
     with pytest.raises(InputError) as err:
-        E.prepare_run(tmp_path / "run2", compiled, load_dispersions(disp), disp, 3, 1, None)
+        erun.prepare_run(tmp_path / "run2", compiled, load_dispersions(disp), disp, 3, 1, None)
     assert err.value.field == "thrust_derate"
     assert "baked in" in str(err.value)
 
@@ -315,7 +313,7 @@ def test_cli_errors_name_the_field(tmp_path, setup, capsys):
 
 def test_progress_line_shows_rate_and_eta():
     out = io.StringIO()
-    bar = E.Progress(10, done=2, stream=out, every_s=0.0)
+    bar = erun.Progress(10, done=2, stream=out, every_s=0.0)
     bar.update(3)
     bar.finish()
     text = out.getvalue()
@@ -325,11 +323,11 @@ def test_progress_line_shows_rate_and_eta():
 def test_torn_last_line_is_dropped_and_damage_is_refused(tmp_path):
     path = tmp_path / "r.jsonl"
     path.write_bytes(b'{"case": 0}\n{"case": 1}\n{"case": 2, "inp')
-    assert [r["case"] for r in E.read_results(path)] == [0, 1]
+    assert [r["case"] for r in erecords.read_results(path)] == [0, 1]
     assert path.read_bytes().endswith(b'{"case": 1}\n')
     path.write_bytes(b'{"case": 0}\nnot json\n{"case": 2}\n')
     with pytest.raises(InputError, match="line 2"):
-        E.read_results(path)
+        erecords.read_results(path)
 
 
 def test_campaign_on_a_real_generated_tree(tmp_path):
@@ -341,14 +339,14 @@ def test_campaign_on_a_real_generated_tree(tmp_path):
     disp.write_text(DISPERSIONS)
     run = tmp_path / "run"
     man = run_inprocess(run, tree, disp, cases=8, every=4)
-    assert man["solver_backend"] != E.DRY_RUN_BACKEND
+    assert man["solver_backend"] != esolvers.DRY_RUN_BACKEND
     recs, lines = records_of(run)
     assert lines == 8 and [r["case"] for r in recs] == list(range(8))
     for r in recs:
         assert (r["reference"] is not None) == bool(r["reference_why"])
         if r["case"] % 4 == 0:
             assert "every_m" in r["reference_why"]
-    s = E.summarise(run, worst=1)
+    s = esummary.summarise(run, worst=1)
     for w in s["worst_cases"][:3]:
         assert "--solver-dir=" in w["replay"]
         got = replay(w["replay"])
@@ -372,4 +370,4 @@ def test_cli_seed_override_and_extending_a_run(tmp_path, setup, capsys):
     seeded = load_dispersions(disp).with_seed(3)
     for r in recs:
         assert r["inputs"]["mass_kg"] == seeded.case(r["case"]).mass_kg
-    assert json.loads((out / E.MANIFEST_NAME).read_text())["seed"] == 3
+    assert json.loads((out / erecords.MANIFEST_NAME).read_text())["seed"] == 3

@@ -26,7 +26,10 @@ from pathlib import Path
 import pytest
 
 from codegen import cli
-from codegen.verify import handoff as H
+from codegen.verify.handoff import tools as H
+from codegen.verify.handoff.package import TAR_MTIME
+from codegen.verify.handoff.run import handoff
+from codegen.verify.handoff.toolout import worst_stack
 from codegen.errors import InputError
 from conftest import DEMO_VEHICLE, ROOT
 
@@ -60,7 +63,7 @@ def built(tmp_path_factory):
                      "demo_dispersions.toml"), "--cases", "4", "--workers", "1",
                      "--reference-every", "2", "--out", str(run), "--no-progress"]) == 0
     pkg = base / "out" / "demo10-pkg"
-    result = H.handoff(tree, pkg, campaign=run, check_cases=10)
+    result = handoff(tree, pkg, campaign=run, check_cases=10)
     return {"base": base, "tree": tree, "run": run, "pkg": pkg, "result": result,
             "tarball": Path(result["tarball"])}
 
@@ -86,7 +89,7 @@ def test_refuses_a_cvxpygen_tree_naming_the_backend(built, tmp_path):
     man["backend"] = "cvxpygen-ecos"
     (tree / "manifest.json").write_text(json.dumps(man))
     with pytest.raises(InputError) as exc:
-        H.handoff(tree, tmp_path / "pkg", checks=False)
+        handoff(tree, tmp_path / "pkg", checks=False)
     assert exc.value.field == "DIR" and "cvxpygen-ecos" in str(exc.value)
     assert "native" in exc.value.rule
     assert not (tmp_path / "pkg").exists()
@@ -98,7 +101,7 @@ def test_refuses_an_edited_tree(built, tmp_path):
     src = tree / "src" / "pdg_guidance.c"
     src.write_text(src.read_text() + "\n/* edited */\n")
     with pytest.raises(InputError) as exc:
-        H.handoff(tree, tmp_path / "pkg", checks=False)
+        handoff(tree, tmp_path / "pkg", checks=False)
     assert "src/pdg_guidance.c" in str(exc.value)
 
 
@@ -109,7 +112,7 @@ def test_refuses_a_campaign_of_another_tree(built, tmp_path):
     man["solver_manifest_sha256"] = "0" * 64
     (run / "manifest.json").write_text(json.dumps(man))
     with pytest.raises(InputError) as exc:
-        H.handoff(built["tree"], tmp_path / "pkg", campaign=run, checks=False)
+        handoff(built["tree"], tmp_path / "pkg", campaign=run, checks=False)
     assert exc.value.field == "--campaign" and "different tree" in exc.value.rule
 
 
@@ -118,7 +121,7 @@ def test_refuses_to_replace_a_directory_that_is_no_package(built, tmp_path):
     out.mkdir()
     (out / "notes.txt").write_text("keep me")
     with pytest.raises(InputError) as exc:
-        H.handoff(built["tree"], out, checks=False)
+        handoff(built["tree"], out, checks=False)
     assert exc.value.field == "--out"
     assert (out / "notes.txt").read_text() == "keep me"
 
@@ -186,7 +189,7 @@ def test_tarball_is_reproducible_in_form(built):
         root = built["pkg"].name
         assert all(n == root or n.startswith(root + "/") for n in names)
         for m in members:
-            assert m.mtime == H.TAR_MTIME and m.uid == 0 and m.gid == 0
+            assert m.mtime == TAR_MTIME and m.uid == 0 and m.gid == 0
             assert m.uname == "" and m.gname == ""
             assert m.mode == (0o755 if m.isdir() else 0o644)
             if m.isfile():
@@ -201,7 +204,7 @@ def test_same_inputs_give_the_same_bytes(built, tmp_path):
     into different parents give byte-identical tarballs."""
     outs = []
     for parent in ("a", "b"):
-        r = H.handoff(built["tree"], tmp_path / parent / "pkg", campaign=built["run"],
+        r = handoff(built["tree"], tmp_path / parent / "pkg", campaign=built["run"],
                       checks=False)
         outs.append(Path(r["tarball"]).read_bytes())
     assert outs[0] == outs[1]
@@ -350,7 +353,7 @@ def test_worst_stack_follows_the_deepest_path():
           'edge: { sourcename: "top" targetname: "b" label: "x" }\n'
           'edge: { sourcename: "b" targetname: "c" label: "x" }\n'
           'edge: { sourcename: "c" targetname: "sqrt" label: "x" }\n}\n')
-    st = H.worst_stack([ci], "top")
+    st = worst_stack([ci], "top")
     assert st["bytes"] == 16 + 40 + 90
     assert [f for f, _ in st["path"]] == ["top", "b", "c"]
     assert st["external"] == ["sqrt"]

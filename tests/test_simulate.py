@@ -16,7 +16,11 @@ from scipy.integrate import solve_ivp
 
 from codegen.errors import InputError
 from codegen.sim.error_model import (ErrorModel, check_against_settings, load_errors, parse_errors)
-from codegen.sim.simulate import (Draw, Settings, TruthModel, default_settings, fly, load_guidance_solver, propagate, read_records, run_batch, write_dry_run_tree)
+from codegen.sim.batch import read_records, run_batch
+from codegen.sim.loop import fly
+from codegen.sim.settings import Draw, Settings, default_settings
+from codegen.sim.tree import load_guidance_solver, write_dry_run_tree
+from codegen.sim.truth import TruthModel, propagate
 from codegen.model.vehicle import G0_MPS2, load_vehicle
 
 ROOT = Path(__file__).resolve().parent.parent

@@ -14,7 +14,10 @@ import pytest
 
 from codegen.emit import generate
 from codegen.sim.error_model import ErrorModel, load_errors
-from codegen.sim.simulate import default_settings, fly, load_guidance_solver, run_batch
+from codegen.sim.batch import run_batch
+from codegen.sim.loop import fly
+from codegen.sim.settings import default_settings
+from codegen.sim.tree import load_guidance_solver
 
 ROOT = Path(__file__).resolve().parent.parent
 VEHICLE = ROOT / "examples" / "demo_vehicle.toml"

@@ -6,8 +6,8 @@ import os
 import sys
 from pathlib import Path
 
+from codegen.cli.common import int_at_least
 from codegen.errors import InputError
-from codegen.cli import int_at_least
 
 
 def register(subparsers) -> None:
@@ -39,15 +39,17 @@ def register(subparsers) -> None:
     s.add_argument("--worst", type=int_at_least("--worst", 1), default=10, metavar="K",
                    help="cases listed per worst-case criterion in the report (default 10)")
     s.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
-    s.set_defaults(func=cmd_envelope)
+    s.set_defaults(func=run)
 
 
-def cmd_envelope(args) -> int:
-    from codegen.verify import envelope as E
+def run(args) -> int:
+    from codegen.verify.envelope.report import write_report
+    from codegen.verify.envelope.run import prepare_run, run_campaign
+    from codegen.verify.envelope.solvers import read_tree
     from codegen.verify.dispersions import load_dispersions
     from codegen.model.vehicle import load_vehicle
 
-    tree = E.read_tree(args.dir)
+    tree = read_tree(args.dir)
     vehicle = load_vehicle(Path(args.dir) / "vehicle.toml")
     disp = load_dispersions(args.dispersions, vehicle)
     if args.seed is not None:
@@ -57,11 +59,11 @@ def cmd_envelope(args) -> int:
                          "applies to the local pool only; a Dask cluster has its own workers")
     workers = args.workers or os.cpu_count() or 1
     out = Path(args.out) if args.out else Path(f"envelope-{Path(args.dir).resolve().name}-seed{disp.seed}")
-    man = E.prepare_run(out, args.dir, disp, args.dispersions, args.cases, args.reference_every,
+    man = prepare_run(out, args.dir, disp, args.dispersions, args.cases, args.reference_every,
                         args.stand_out_iterations)
-    info = E.run_campaign(out, man, workers=workers, scheduler=args.scheduler,
+    info = run_campaign(out, man, workers=workers, scheduler=args.scheduler,
                           progress=not args.no_progress)
-    summary = E.write_report(out, args.worst)
+    summary = write_report(out, args.worst)
     g = summary["generated"]
     a = summary["accuracy"]
 

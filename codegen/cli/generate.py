@@ -1,13 +1,14 @@
-"""`pdgc generate` and `pdgc check`."""
+"""``pdgc generate``: a C guidance solver tree for a vehicle and a horizon."""
 
 from __future__ import annotations
 
 import sys
 
+from codegen.cli.common import positive_int
+
 
 def register(sub) -> None:
     from codegen.backends import DEFAULT_BACKEND
-    from codegen.cli import positive_int
     from codegen.emit import DEFAULT_PREFIX
 
     s = sub.add_parser("generate", help="generate a C guidance solver tree")
@@ -18,21 +19,10 @@ def register(sub) -> None:
     s.add_argument("--out", required=True, help="directory of the tree")
     s.add_argument("--prefix", default=DEFAULT_PREFIX, help="C identifier prefix (default pdg)")
     s.add_argument("--precision", default="double", choices=("double", "single"))
-    s.set_defaults(func=cmd_generate)
-
-    s = sub.add_parser("check", help="check a generated solver against the reference")
-    s.add_argument("dir")
-    s.add_argument("--cases", type=int, default=200)
-    s.add_argument("--seed", type=int, default=1)
-    s.add_argument("--tol-objective", type=float, default=None,
-                   help="relative objective tolerance (default by precision)")
-    s.add_argument("--search-every", type=int, default=5,
-                   help="every K-th case searches the time of flight (default 5)")
-    s.add_argument("--json", default=None, metavar="FILE", help="also write the results as JSON")
-    s.set_defaults(func=cmd_check)
+    s.set_defaults(func=run)
 
 
-def cmd_generate(args) -> int:
+def run(args) -> int:
     from codegen.emit import generate
 
     def say(msg):
@@ -43,8 +33,3 @@ def cmd_generate(args) -> int:
     print(f"generated {args.out}: backend {m['backend']}, N = {m['horizon']}, "
           f"{len(m['files'])} files, {m['generation_seconds']:.1f} s")
     return 0
-
-
-def cmd_check(args) -> int:
-    from codegen.verify.check import run_check
-    return run_check(args)

@@ -1,4 +1,4 @@
-"""``pdgc handoff``: the package for flight-software engineers (see codegen/handoff.py)."""
+"""``pdgc handoff``: the package for flight-software engineers (see codegen/verify/handoff/)."""
 
 from __future__ import annotations
 
@@ -25,11 +25,11 @@ def register(subparsers) -> None:
                         "record (default 50; 0: none)")
     s.add_argument("--no-checks", action="store_true",
                    help="skip the target checks (the record then says so)")
-    s.set_defaults(func=cmd_handoff)
+    s.set_defaults(func=run)
 
 
-def cmd_handoff(args) -> int:
-    from codegen.verify.handoff import handoff
+def run(args) -> int:
+    from codegen.verify.handoff.run import handoff
 
     def say(msg):
         print(f"pdgc handoff: {msg}", file=sys.stderr)

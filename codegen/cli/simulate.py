@@ -3,22 +3,9 @@
 from __future__ import annotations
 
 import sys
-from codegen.cli import int_at_least
 
-
-def _float(name):
-    import argparse
-    import math
-
-    def conv(text):
-        try:
-            v = float(text)
-        except ValueError:
-            raise argparse.ArgumentTypeError(f"{name} = {text!r}: must be a number") from None
-        if not math.isfinite(v):
-            raise argparse.ArgumentTypeError(f"{name} = {text!r}: must be finite")
-        return v
-    return conv
+from codegen.cli.common import (finite_float, int_at_least, parse_state, parse_vector3,
+                                 print_table)
 
 
 def register(sub) -> None:
@@ -35,34 +22,35 @@ def register(sub) -> None:
     s.add_argument("--seed", type=int_at_least("--seed", 0), default=1, help="batch seed (default 1)")
     s.add_argument("--errors", default=None, metavar="FILE",
                    help="error file (TOML); default: no errors (ideal loop)")
-    s.add_argument("--rate", type=_float("--rate"), default=1.0, metavar="HZ",
+    s.add_argument("--rate", type=finite_float("--rate"), default=1.0, metavar="HZ",
                    help="guidance re-plan rate (default 1 Hz; 0 flies the first plan open loop)")
     s.add_argument("--out", default="sim-out", metavar="RUN_DIR",
                    help="run directory (default sim-out)")
-    s.add_argument("--step", type=_float("--step"), default=None, metavar="S",
+    s.add_argument("--step", type=finite_float("--step"), default=None, metavar="S",
                    help="truth RK4 step (default 0.01 s)")
-    s.add_argument("--control-rate", type=_float("--control-rate"), default=None, metavar="HZ",
+    s.add_argument("--control-rate", type=finite_float("--control-rate"), default=None, metavar="HZ",
                    help="rate of the tracking loop around the plan (default 10 Hz)")
-    s.add_argument("--tracking-bandwidth", type=_float("--tracking-bandwidth"), default=None,
+    s.add_argument("--tracking-bandwidth", type=finite_float("--tracking-bandwidth"), default=None,
                    metavar="RAD_S", help="tracking loop bandwidth (default 0.5 rad/s; 0: none)")
-    s.add_argument("--terminal-s", type=_float("--terminal-s"), default=None, metavar="S",
+    s.add_argument("--terminal-s", type=finite_float("--terminal-s"), default=None, metavar="S",
                    help="stop re-planning below this time to go (default 3 s)")
-    s.add_argument("--descent-altitude", type=_float("--descent-altitude"), default=None,
+    s.add_argument("--descent-altitude", type=finite_float("--descent-altitude"), default=None,
                    metavar="M", help="guidance aims at rest this high above the target, then a "
                    "constant-speed vertical descent to contact (default 4 m; 0: none)")
-    s.add_argument("--descent-speed", type=_float("--descent-speed"), default=None, metavar="MPS",
+    s.add_argument("--descent-speed", type=finite_float("--descent-speed"), default=None, metavar="MPS",
                    help="speed of the terminal descent (default 1 m/s)")
     s.add_argument("--state", default=None, help="nominal start X,Y,Z,VX,VY,VZ,MASS "
                    "(default: centre of the vehicle's envelope, its largest mass)")
     s.add_argument("--target", default=None, help="X,Y,Z of the landing target [m]")
     s.add_argument("--quiet", action="store_true", help="no line per run")
-    s.set_defaults(func=cmd_simulate)
+    s.set_defaults(func=run)
 
 
-def cmd_simulate(args) -> int:
-    from codegen.cli import parse_state, parse_vector3, print_table
+def run(args) -> int:
     from codegen.sim.error_model import ErrorModel, load_errors
-    from codegen.sim.simulate import default_settings, load_guidance_solver, run_batch
+    from codegen.sim.batch import run_batch
+    from codegen.sim.settings import default_settings
+    from codegen.sim.tree import load_guidance_solver
 
     errors = load_errors(args.errors) if args.errors else ErrorModel()
     solver = load_guidance_solver(args.dir)

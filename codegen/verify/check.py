@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import json
 import math
-import sys
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -158,65 +157,53 @@ def summarise(results: list, tol: dict) -> dict:
     }
 
 
-def run_check(args) -> int:
+@dataclass
+class CheckRun:
+    """A finished check of a generated tree: its solver, tolerances, results, summary."""
+
+    solver: object
+    precision: str
+    tolerances: dict
+    length_m: float
+    results: list
+    summary: dict
+
+
+def check_tree(tree_dir, cases: int, seed: int, search_every: int = 5,
+               tol_objective: float | None = None, on_case=None) -> CheckRun:
+    """Compare the generated solver in ``tree_dir`` with the reference on
+    ``cases`` dispersed cases; ``on_case(done, total)`` after each one."""
     from codegen.bind import load_solver
-    from codegen.cli import print_table
     from codegen.model.problem import Scaling
 
-    gen = load_solver(args.dir)
+    gen = load_solver(tree_dir)
     vehicle = gen.vehicle
     ref = ReferenceSolver(vehicle, gen.horizon)
     precision = gen.manifest.get("precision", "double")
     tol = dict(TOLERANCES[precision])
-    if args.tol_objective is not None:
-        tol["objective_rel"] = args.tol_objective
+    if tol_objective is not None:
+        tol["objective_rel"] = tol_objective
     length = Scaling.for_vehicle(vehicle).length_m
-    cases = draw_cases(vehicle, args.cases, args.seed, args.search_every)
+    drawn = draw_cases(vehicle, cases, seed, search_every)
     results = []
-    for i, case in enumerate(cases):
+    for i, case in enumerate(drawn):
         results.append(compare(gen, ref, case, tol, vehicle, length))
-        if sys.stderr.isatty() or (i + 1) % max(1, len(cases) // 10) == 0:
-            print(f"\rpdgc check: {i + 1}/{len(cases)} cases", end="" if sys.stderr.isatty() else "\n",
-                  file=sys.stderr, flush=True)
-    if sys.stderr.isatty():
-        print(file=sys.stderr)
-    s = summarise(results, tol)
-    ms = 1e3
-    print(f"pdgc check: {args.dir} ({gen.backend}, N = {gen.horizon}, {precision}), "
-          f"{s['cases']} cases, seed {args.seed}")
-    print_table([
-        ("status agreement", f"{s['status_agreement']}/{s['cases']}"),
-        ("status pairs (generated/reference)",
-         ", ".join(f"{k}: {v}" for k, v in s["status_pairs"].items())),
-        ("worst relative objective error", f"{s['worst_objective_rel']:.3g}  (tol {tol['objective_rel']:.1g})"),
-        ("worst relative fuel error", f"{s['worst_fuel_rel']:.3g}"),
-        ("worst position difference", f"{s['worst_position_m']:.3g} m  (tol {tol['position_rel'] * length:.3g})"),
-        ("worst thrust difference", f"{s['worst_thrust_n']:.3g} N  (tol {tol['thrust_rel'] * vehicle.thrust_upper_n:.3g})"),
-        ("iterations per solve (median / worst)", f"{s['iterations_median']:.0f} / {s['iterations_worst']}"),
-        ("solve time, fixed tof (median / worst)",
-         f"{s['solve_time_fixed_median_s'] * ms:.3f} / {s['solve_time_fixed_worst_s'] * ms:.3f} ms"),
-        ("plan time, searched tof (median / worst)",
-         f"{s['solve_time_search_median_s'] * ms:.3f} / {s['solve_time_search_worst_s'] * ms:.3f} ms"),
-    ])
-    failed = [r for r in results if r.failures]
-    for r in failed[:20]:
-        print(f"FAIL case {r.case.index} ({r.case.kind}): {'; '.join(r.failures)}")
-        print(f"  replay: {replay_line(args.dir, r.case, gen.horizon)}")
-    if len(failed) > 20:
-        print(f"... and {len(failed) - 20} more failing cases")
-    if args.json:
-        from codegen.fsutil import write_atomic
-        payload = {"summary": s, "cases": [
-            {"index": r.case.index, "kind": r.case.kind, "position_m": r.case.position_m,
-             "velocity_mps": r.case.velocity_mps, "mass_kg": r.case.mass_kg,
-             "time_of_flight_s": r.case.time_of_flight_s, "generated": r.generated,
-             "reference": r.reference, "objective_rel": _num(r.objective_rel),
-             "position_m_diff": _num(r.position_m), "thrust_n_diff": _num(r.thrust_n),
-             "iterations_max": r.iterations_max, "solve_time_s": r.solve_time_s,
-             "failures": r.failures} for r in results]}
-        write_atomic(args.json, json.dumps(payload, indent=1, default=_num))
-    print("PASS" if not failed else f"FAIL: {len(failed)} of {len(results)} cases")
-    return 0 if not failed else 1
+        if on_case is not None:
+            on_case(i + 1, len(drawn))
+    return CheckRun(gen, precision, tol, length, results, summarise(results, tol))
+
+
+def results_json(run: CheckRun) -> str:
+    """The text of ``pdgc check --json``: the summary and every case."""
+    payload = {"summary": run.summary, "cases": [
+        {"index": r.case.index, "kind": r.case.kind, "position_m": r.case.position_m,
+         "velocity_mps": r.case.velocity_mps, "mass_kg": r.case.mass_kg,
+         "time_of_flight_s": r.case.time_of_flight_s, "generated": r.generated,
+         "reference": r.reference, "objective_rel": _num(r.objective_rel),
+         "position_m_diff": _num(r.position_m), "thrust_n_diff": _num(r.thrust_n),
+         "iterations_max": r.iterations_max, "solve_time_s": r.solve_time_s,
+         "failures": r.failures} for r in run.results]}
+    return json.dumps(payload, indent=1, default=_num)
 
 
 def _num(x):

@@ -1,0 +1,65 @@
+"""``pdgc check``: a generated solver against the reference, case by case."""
+
+from __future__ import annotations
+
+import sys
+
+from codegen.cli.common import print_table
+
+
+def register(sub) -> None:
+    s = sub.add_parser("check", help="check a generated solver against the reference")
+    s.add_argument("dir")
+    s.add_argument("--cases", type=int, default=200)
+    s.add_argument("--seed", type=int, default=1)
+    s.add_argument("--tol-objective", type=float, default=None,
+                   help="relative objective tolerance (default by precision)")
+    s.add_argument("--search-every", type=int, default=5,
+                   help="every K-th case searches the time of flight (default 5)")
+    s.add_argument("--json", default=None, metavar="FILE", help="also write the results as JSON")
+    s.set_defaults(func=run)
+
+
+def _progress(done: int, total: int) -> None:
+    if sys.stderr.isatty() or done % max(1, total // 10) == 0:
+        print(f"\rpdgc check: {done}/{total} cases", end="" if sys.stderr.isatty() else "\n",
+              file=sys.stderr, flush=True)
+
+
+def run(args) -> int:
+    from codegen.verify.check import check_tree, replay_line, results_json
+
+    r = check_tree(args.dir, args.cases, args.seed, args.search_every, args.tol_objective,
+                   on_case=_progress)
+    if sys.stderr.isatty():
+        print(file=sys.stderr)
+    gen, s, tol, length = r.solver, r.summary, r.tolerances, r.length_m
+    vehicle = gen.vehicle
+    ms = 1e3
+    print(f"pdgc check: {args.dir} ({gen.backend}, N = {gen.horizon}, {r.precision}), "
+          f"{s['cases']} cases, seed {args.seed}")
+    print_table([
+        ("status agreement", f"{s['status_agreement']}/{s['cases']}"),
+        ("status pairs (generated/reference)",
+         ", ".join(f"{k}: {v}" for k, v in s["status_pairs"].items())),
+        ("worst relative objective error", f"{s['worst_objective_rel']:.3g}  (tol {tol['objective_rel']:.1g})"),
+        ("worst relative fuel error", f"{s['worst_fuel_rel']:.3g}"),
+        ("worst position difference", f"{s['worst_position_m']:.3g} m  (tol {tol['position_rel'] * length:.3g})"),
+        ("worst thrust difference", f"{s['worst_thrust_n']:.3g} N  (tol {tol['thrust_rel'] * vehicle.thrust_upper_n:.3g})"),
+        ("iterations per solve (median / worst)", f"{s['iterations_median']:.0f} / {s['iterations_worst']}"),
+        ("solve time, fixed tof (median / worst)",
+         f"{s['solve_time_fixed_median_s'] * ms:.3f} / {s['solve_time_fixed_worst_s'] * ms:.3f} ms"),
+        ("plan time, searched tof (median / worst)",
+         f"{s['solve_time_search_median_s'] * ms:.3f} / {s['solve_time_search_worst_s'] * ms:.3f} ms"),
+    ])
+    failed = [x for x in r.results if x.failures]
+    for x in failed[:20]:
+        print(f"FAIL case {x.case.index} ({x.case.kind}): {'; '.join(x.failures)}")
+        print(f"  replay: {replay_line(args.dir, x.case, gen.horizon)}")
+    if len(failed) > 20:
+        print(f"... and {len(failed) - 20} more failing cases")
+    if args.json:
+        from codegen.fsutil import write_atomic
+        write_atomic(args.json, results_json(r))
+    print("PASS" if not failed else f"FAIL: {len(failed)} of {len(r.results)} cases")
+    return 0 if not failed else 1

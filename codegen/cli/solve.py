@@ -1,0 +1,90 @@
+"""``pdgc solve``: plan one descent with the reference or a generated solver."""
+
+from __future__ import annotations
+
+import sys
+
+from codegen.cli.common import parse_state, parse_vector3, positive_int, print_table
+from codegen.errors import InputError
+
+#: The horizon when --horizon is not given.
+DEFAULT_HORIZON = 50
+
+
+def register(sub) -> None:
+    s = sub.add_parser("solve", help="plan one descent (reference solve, or a generated solver)")
+    s.add_argument("vehicle")
+    s.add_argument("--state", required=True, help="X,Y,Z,VX,VY,VZ,MASS in m, m/s, kg")
+    s.add_argument("--tof", type=float, default=None, help="time of flight [s]; searched if absent")
+    s.add_argument("--horizon", type=positive_int("--horizon"), default=None)
+    s.add_argument("--target", default=None, help="X,Y,Z of the landing target [m]")
+    s.add_argument("--solver-dir", default=None,
+                   help="use the generated solver in this tree instead of the reference")
+    s.add_argument("--no-fallback", action="store_true",
+                   help="report 'infeasible' when the target is out of reach instead of the "
+                        "two-stage least-miss plan (as generated solvers do)")
+    s.add_argument("--json", action="store_true", help="print one JSON object")
+    s.add_argument("--plot", default=None, metavar="FILE.png")
+    s.set_defaults(func=run)
+
+
+def run(args) -> int:
+    from codegen.model.analysis import margins
+    from codegen.model.vehicle import load_vehicle
+    from codegen.reference import ReferenceSolver
+
+    horizon_given = args.horizon is not None
+    horizon = args.horizon if horizon_given else DEFAULT_HORIZON
+    vehicle = load_vehicle(args.vehicle)
+    for w in vehicle.warnings:
+        print(f"pdgc: warning: {w}", file=sys.stderr)
+    pos, vel, mass = parse_state(args.state)
+    target = parse_vector3("--target", args.target) if args.target else (0.0, 0.0, 0.0)
+    if args.solver_dir:
+        from codegen.bind import load_solver
+        solver = load_solver(args.solver_dir)
+        if solver.horizon != horizon and horizon_given:
+            raise InputError("--horizon", horizon,
+                             f"the generated solver in {args.solver_dir} has horizon {solver.horizon}")
+        traj = solver.solve(pos, vel, mass, args.tof, target)
+    else:
+        solver = ReferenceSolver(vehicle, horizon)
+        traj = solver.solve(pos, vel, mass, args.tof, target, fallback=not args.no_fallback)
+    if args.json:
+        print(traj.to_json())
+    else:
+        print_table(_rows(traj, margins(traj, vehicle, target)))
+    if args.plot:
+        if traj.solved:
+            from codegen.plot import plot_trajectory
+            plot_trajectory(traj, vehicle, args.plot, target)
+            if not args.json:
+                print(f"  plot written to {args.plot}")
+        else:
+            print(f"pdgc: no plot: status {traj.status}", file=sys.stderr)
+    return 0 if traj.solved else 1
+
+
+def _rows(traj, m) -> list:
+    rows = [("status", traj.status)]
+    if traj.message:
+        rows.append(("message", traj.message))
+    if traj.solved:
+        rows += [
+            ("time of flight", f"{traj.time_of_flight_s:.4f} s"),
+            ("fuel", f"{traj.fuel_kg:.4f} kg"),
+            ("landing miss", f"{traj.landing_miss_m:.3g} m"),
+            ("throttle min / max", f"{m['throttle_min']:.4f} / {m['throttle_max']:.4f}"),
+            ("pointing margin", f"{m['pointing_margin_deg']:.3f} deg"),
+            ("glide-slope margin", f"{m['glide_slope_margin_m']:.3f} m"),
+            ("speed margin", f"{m['speed_margin_mps']:.3f} m/s"),
+            ("tightness gap |u| vs sigma", f"{m['tightness_gap']:.3g}"),
+        ]
+    rows += [
+        ("solver", f"{traj.solver}, N = {traj.horizon}"),
+        ("solves", str(traj.solves)),
+        ("iterations (answer / max / total)",
+         f"{traj.iterations} / {traj.iterations_max} / {traj.iterations_total}"),
+        ("solve time", f"{traj.solve_time_s * 1e3:.2f} ms"),
+    ]
+    return rows

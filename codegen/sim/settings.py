@@ -1,0 +1,142 @@
+"""What a batch does besides the errors (Settings), and the per-run draws (Draw)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from codegen.errors import InputError
+from codegen.model.vehicle import Vehicle
+from codegen.sim.error_model import ErrorModel
+
+
+#: The terminal descent starts from rest and reaches its speed at this
+#: downward acceleration (m/s^2).
+DESCENT_ACCEL_MPS2 = 1.0
+
+
+@dataclass(frozen=True)
+class Settings:
+    """What a batch does besides the errors. ``rate_hz = 0``: open loop."""
+
+    rate_hz: float = 1.0
+    step_s: float = 0.01
+    terminal_s: float = 3.0
+    control_rate_hz: float = 10.0
+    tracking_bandwidth_rad_s: float = 0.5
+    descent_altitude_m: float = 4.0
+    descent_speed_mps: float = 1.0
+    position_m: tuple = (1500.0, 0.0, 1500.0)
+    velocity_mps: tuple = (-50.0, 0.0, -40.0)
+    mass_kg: float = 1900.0
+    target_m: tuple = (0.0, 0.0, 0.0)
+    history_dt_s: float = 0.5
+
+    def check(self, vehicle: Vehicle) -> None:
+        if not (math.isfinite(self.rate_hz) and self.rate_hz >= 0.0):
+            raise InputError("--rate", self.rate_hz, "must be a finite number >= 0 (0: open loop)")
+        if not (math.isfinite(self.step_s) and self.step_s > 0.0):
+            raise InputError("--step", self.step_s, "must be a finite number > 0")
+        if self.rate_hz > 0.0 and self.step_s > 0.1 / self.rate_hz:
+            raise InputError("--step", self.step_s,
+                             f"must be at most a tenth of the guidance period 1/--rate = "
+                             f"{1.0 / self.rate_hz:g} s (truth integrated well above the "
+                             "guidance rate)")
+        if not (math.isfinite(self.control_rate_hz) and self.control_rate_hz > 0.0):
+            raise InputError("--control-rate", self.control_rate_hz, "must be a finite number > 0")
+        if self.control_rate_hz < self.rate_hz:
+            raise InputError("--control-rate", self.control_rate_hz,
+                             f"must be at least the guidance rate --rate = {self.rate_hz:g} Hz")
+        if self.step_s > 0.25 / self.control_rate_hz:
+            raise InputError("--step", self.step_s,
+                             f"must be at most a quarter of the control period 1/--control-rate = "
+                             f"{1.0 / self.control_rate_hz:g} s")
+        if not (math.isfinite(self.tracking_bandwidth_rad_s) and self.tracking_bandwidth_rad_s >= 0.0):
+            raise InputError("--tracking-bandwidth", self.tracking_bandwidth_rad_s,
+                             "must be a finite number >= 0 (0: fly the plan's accelerations only)")
+        if self.tracking_bandwidth_rad_s > 0.5 * math.pi * self.control_rate_hz:
+            raise InputError("--tracking-bandwidth", self.tracking_bandwidth_rad_s,
+                             f"must be at most a quarter of the control sampling frequency, "
+                             f"2 pi --control-rate / 4 = {0.5 * math.pi * self.control_rate_hz:g} rad/s "
+                             "(a sampled loop near its sampling rate is not the loop designed)")
+        if not (math.isfinite(self.descent_altitude_m) and self.descent_altitude_m >= 0.0):
+            raise InputError("--descent-altitude", self.descent_altitude_m,
+                             "must be a finite number >= 0 (0: the plan lands by itself)")
+        if self.descent_altitude_m > 0.0 and not (math.isfinite(self.descent_speed_mps)
+                                                   and self.descent_speed_mps > 0.0):
+            raise InputError("--descent-speed", self.descent_speed_mps, "must be a finite number > 0")
+        if self.descent_altitude_m > 0.0 and self.descent_speed_mps ** 2 / (2 * DESCENT_ACCEL_MPS2) > self.descent_altitude_m:
+            raise InputError("--descent-speed", self.descent_speed_mps,
+                             f"cannot be reached from --descent-altitude {self.descent_altitude_m:g} m "
+                             f"at {DESCENT_ACCEL_MPS2:g} m/s^2 before contact")
+        if not (math.isfinite(self.terminal_s) and self.terminal_s >= 0.0):
+            raise InputError("--terminal-s", self.terminal_s, "must be a finite number >= 0")
+        for name, vec in (("--state position", self.position_m),
+                          ("--state velocity", self.velocity_mps), ("--target", self.target_m)):
+            if len(vec) != 3 or not all(math.isfinite(x) for x in vec):
+                raise InputError(name, vec, "must be three finite numbers")
+        if not vehicle.mass_dry_kg < self.mass_kg <= vehicle.mass_wet_kg:
+            raise InputError("--state mass", self.mass_kg,
+                             f"must lie in (mass_dry_kg, mass_wet_kg] = "
+                             f"({vehicle.mass_dry_kg!r}, {vehicle.mass_wet_kg!r}]")
+        if self.position_m[2] <= self.target_m[2]:
+            raise InputError("--state position[2]", self.position_m[2],
+                             f"must be above the target altitude {self.target_m[2]!r}")
+
+
+def default_settings(vehicle: Vehicle, **overrides) -> Settings:
+    """Settings whose nominal start is the centre of the vehicle's envelope
+    (mass: the envelope's largest)."""
+    env = vehicle.envelope
+    base = dict(
+        position_m=tuple((a + b) / 2.0 for a, b in zip(env.position_min_m, env.position_max_m)),
+        velocity_mps=tuple((a + b) / 2.0 for a, b in zip(env.velocity_min_mps, env.velocity_max_mps)),
+        mass_kg=env.mass_max_kg,
+    )
+    base.update({k: v for k, v in overrides.items() if v is not None})
+    return Settings(**base)
+
+
+@dataclass
+class Draw:
+    """Everything random about one run that is fixed for the whole run."""
+
+    position_m: tuple
+    velocity_mps: tuple
+    mass_kg: float
+    position_bias_m: tuple
+    velocity_bias_mps: tuple
+    mass_bias_kg: float
+    thrust_scale: float
+    misalignment_rad: tuple          # rotation about x and y
+    disturbance_mps2: tuple
+
+
+def draw_run(errors: ErrorModel, settings: Settings, vehicle: Vehicle, rng) -> Draw:
+    """Per-run draws, always in this order (each draw consumed even when its
+    spread is zero, so that one spread does not shift the others)."""
+    def vec(sigma):
+        return tuple(float(x) for x in rng.normal(0.0, 1.0, 3) * np.asarray(sigma, float))
+
+    def one(sigma):
+        return float(rng.normal(0.0, 1.0) * sigma)
+
+    dpos, dvel, dmass = vec(errors.position_sigma_m), vec(errors.velocity_sigma_mps), one(errors.mass_sigma_kg)
+    pos_bias, vel_bias = vec(errors.position_bias_sigma_m), vec(errors.velocity_bias_sigma_mps)
+    mass_bias = one(errors.mass_bias_sigma_kg)
+    scale = 1.0 + one(errors.magnitude_error_sigma)
+    mis = vec((math.radians(errors.misalignment_sigma_deg),) * 2 + (0.0,))[:2]
+    dist = vec(errors.accel_sigma_mps2)
+    position = tuple(p + d for p, d in zip(settings.position_m, dpos))
+    # The tanks cannot hold more than full: the true start mass is capped at wet.
+    mass = min(settings.mass_kg + dmass, vehicle.mass_wet_kg)
+    return Draw(
+        position_m=position,
+        velocity_mps=tuple(v + d for v, d in zip(settings.velocity_mps, dvel)),
+        mass_kg=mass,
+        position_bias_m=pos_bias, velocity_bias_mps=vel_bias, mass_bias_kg=mass_bias,
+        thrust_scale=scale, misalignment_rad=mis,
+        disturbance_mps2=tuple(a + b for a, b in zip(errors.accel_mps2, dist)),
+    )

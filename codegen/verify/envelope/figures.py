@@ -1,0 +1,106 @@
+"""The pictures of the envelope report (matplotlib, as data URIs)."""
+
+from __future__ import annotations
+
+import math
+
+
+STATUS_COLOURS = {"optimal": "#2a7f2a", "least_miss": "#e08a00", "infeasible": "#c02020",
+                  "iteration_limit": "#7a1fa2", "numerical_trouble": "#1f5fbf", "bad_input": "#555555"}
+
+
+def _figures(records) -> dict:
+    """The report's pictures, as data URIs."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    import matplotlib.ticker
+    import numpy as np
+
+    from codegen.report import figure_png_base64
+
+    figs = {}
+    gens = [r["generated"] for r in records]
+    statuses = np.array([g["status"] for g in gens])
+    it_max = np.array([g["iterations_max"] for g in gens])
+    it_tot = np.array([g["iterations_total"] for g in gens])
+
+    fig, axes = plt.subplots(1, 2, figsize=(10, 3.6))
+    for ax, data, label in ((axes[0], it_max, "most iterations in one solve"),
+                            (axes[1], it_tot, "iterations in the whole time-of-flight search")):
+        lo, hi = int(data.min()), int(data.max())
+        step = max(1, (hi - lo + 1) // 60)
+        bins = np.arange(lo, hi + step + 1, step) - 0.5
+        ax.hist(data, bins=bins, color="#3b6ea5")
+        ax.set_xlabel(label)
+        ax.set_ylabel("cases")
+        ax.set_yscale("log")
+        ax.yaxis.set_major_formatter(matplotlib.ticker.ScalarFormatter())
+        ax.yaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
+        ax.axvline(hi, color="#c02020", lw=1, ls="--", label=f"worst {hi}")
+        ax.legend(fontsize=8)
+    figs["iterations"] = figure_png_base64(fig)
+
+    t_ms = np.array([g["solve_time_s"] for g in gens]) * 1e3
+    fig, axes = plt.subplots(1, 2, figsize=(10, 3.6))
+    pos = t_ms[t_ms > 0]
+    if len(pos):
+        bins = np.logspace(math.log10(pos.min()), math.log10(pos.max()) + 1e-9, 50)
+        axes[0].hist(pos, bins=bins, color="#3b6ea5")
+        axes[0].set_xscale("log")
+        srt = np.sort(pos)
+        surv = 1.0 - np.arange(len(srt)) / len(srt)
+        axes[1].step(srt, surv, where="post", color="#3b6ea5")
+        axes[1].set_xscale("log")
+        axes[1].set_yscale("log")
+    for ax in axes:
+        ax.xaxis.set_major_locator(matplotlib.ticker.LogLocator(subs=(1.0, 2.0, 5.0)))
+        ax.xaxis.set_major_formatter(matplotlib.ticker.FormatStrFormatter("%g"))
+        ax.xaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
+    axes[0].set_xlabel("solve time [ms] (whole search)")
+    axes[0].set_ylabel("cases")
+    axes[1].set_xlabel("solve time [ms]")
+    axes[1].set_ylabel("fraction of cases slower or equal")
+    figs["solve_time"] = figure_png_base64(fig)
+
+    x = np.array([r["inputs"]["position_m"][0] for r in records])
+    y = np.array([r["inputs"]["position_m"][1] for r in records])
+    up = np.array([r["inputs"]["position_m"][2] for r in records])
+    fig, ax = plt.subplots(figsize=(8, 5))
+    size = 12 if len(records) < 2000 else 4
+    for st in sorted(set(statuses), key=lambda s: (s != "optimal", s)):
+        sel = statuses == st
+        ax.scatter(x[sel], up[sel], s=size, c=STATUS_COLOURS.get(st, "#000"),
+                   label=f"{st} ({int(sel.sum())})", alpha=0.8, linewidths=0)
+    ax.set_xlabel("initial downrange x [m]")
+    ax.set_ylabel("initial altitude [m]")
+    ax.legend(fontsize=8, markerscale=2)
+    figs["feasibility"] = figure_png_base64(fig)
+
+    divert = np.hypot(x, y)
+    fuel = np.array([g["fuel_kg"] if g["fuel_kg"] is not None else np.nan for g in gens])
+    fig, ax = plt.subplots(figsize=(8, 5))
+    for st in sorted(set(statuses), key=lambda s: (s != "optimal", s)):
+        sel = (statuses == st) & np.isfinite(fuel)
+        if sel.any():
+            ax.scatter(divert[sel], fuel[sel], s=size, c=STATUS_COLOURS.get(st, "#000"),
+                       label=f"{st} ({int(sel.sum())})", alpha=0.8, linewidths=0)
+    ax.set_xlabel("divert distance: initial horizontal distance to the target [m]")
+    ax.set_ylabel("fuel [kg]")
+    if np.isfinite(fuel).any():
+        ax.legend(fontsize=8, markerscale=2)
+    figs["fuel_divert"] = figure_png_base64(fig)
+
+    rel = [abs(r["accuracy"]["fuel_rel_diff"]) for r in records
+           if r["accuracy"] and r["accuracy"]["fuel_rel_diff"] is not None]
+    if rel and max(rel) > 0.0:
+        fig, ax = plt.subplots(figsize=(8, 3.4))
+        floor = 1e-16
+        vals = np.maximum(np.array(rel), floor)
+        bins = np.logspace(math.log10(vals.min()), math.log10(vals.max()) + 1e-9, 40)
+        ax.hist(vals, bins=bins, color="#3b6ea5")
+        ax.set_xscale("log")
+        ax.set_xlabel(f"|fuel generated - fuel reference| / fuel reference (floored at {floor:g})")
+        ax.set_ylabel("cases")
+        figs["accuracy"] = figure_png_base64(fig)
+    return figs

@@ -1,0 +1,121 @@
+"""The files of a run: manifest.json, results.jsonl, replay lines and vehicles."""
+
+from __future__ import annotations
+
+import json
+import os
+import shlex
+from pathlib import Path
+
+from codegen.errors import InputError
+from codegen.fsutil import complete_lines, write_atomic
+from codegen.verify.envelope.solvers import DRY_RUN_BACKEND
+
+
+RUN_FORMAT = "pdgc-envelope-run/1"
+
+
+RESULTS_NAME = "results.jsonl"
+
+
+MANIFEST_NAME = "manifest.json"
+
+
+def read_results(path) -> list:
+    """Records of ``results.jsonl``; a torn last line is cut off the file.
+
+    A line that ends with a newline was written whole (one write per record);
+    only the text after the last newline can be torn by a kill, and it is
+    removed so that the next append starts on a fresh line.
+    """
+    records = []
+    for n, line in complete_lines(path):
+        try:
+            rec = json.loads(line)
+        except json.JSONDecodeError as exc:
+            raise InputError(f"{path}: line {n}", line[:60].decode("utf-8", "replace"),
+                             f"is not a JSON record ({exc.msg}); the results file is damaged") from None
+        if not isinstance(rec, dict) or not isinstance(rec.get("case"), int):
+            raise InputError(f"{path}: line {n}", line[:60].decode("utf-8", "replace"),
+                             "is not a case record")
+        records.append(rec)
+    return records
+
+
+class ResultsLog:
+    """Append-only JSONL: one ``os.write`` of a whole line, then fsync."""
+
+    def __init__(self, path):
+        self.path = Path(path)
+        self.fd = os.open(self.path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+
+    def append(self, record: dict) -> None:
+        line = (json.dumps(record, separators=(",", ":"), allow_nan=False) + "\n").encode()
+        view = memoryview(line)
+        while view:
+            view = view[os.write(self.fd, view):]
+        os.fsync(self.fd)
+
+    def close(self) -> None:
+        os.close(self.fd)
+
+
+def load_run(run_dir):
+    run_dir = Path(run_dir)
+    man_path = run_dir / MANIFEST_NAME
+    try:
+        man = json.loads(man_path.read_text())
+    except OSError as exc:
+        raise InputError("RUN_DIR", str(run_dir), f"holds no envelope run ({exc.strerror})") from None
+    records = {}
+    for r in read_results(run_dir / RESULTS_NAME):
+        if r["case"] < man["cases"]:
+            records.setdefault(r["case"], r)
+    return man, [records[k] for k in sorted(records)]
+
+
+def replay_command(manifest: dict, record: dict, vehicle_path=None) -> str:
+    """The ``pdgc solve`` line that replays ``record`` with the same solver."""
+    inp = record["inputs"]
+    state = ",".join(repr(float(x)) for x in
+                     list(inp["position_m"]) + list(inp["velocity_mps"]) + [inp["mass_kg"]])
+    solver_dir = manifest["solver_dir"]
+    vehicle = vehicle_path or str(Path(solver_dir) / "vehicle.toml")
+    parts = ["pdgc", "solve", shlex.quote(str(vehicle)), f"--state={state}"]
+    if inp.get("time_of_flight_s") is not None:
+        parts.append(f"--tof={float(inp['time_of_flight_s'])!r}")
+    if manifest["solver_backend"] == DRY_RUN_BACKEND:
+        parts.append(f"--horizon={manifest['horizon']}")
+        parts.append("--no-fallback")
+    else:
+        parts.append(f"--solver-dir={shlex.quote(solver_dir)}")
+    parts.append("--json")
+    return " ".join(parts)
+
+
+def derated_vehicle_file(manifest: dict, record: dict, out_dir) -> Path:
+    """Write the derated vehicle of a derated case (for its replay line)."""
+    import tomllib
+    src = Path(manifest["solver_dir"]) / "vehicle.toml"
+    data = tomllib.loads(src.read_text())
+    derate = record["inputs"]["thrust_derate"]
+    lines = [f"# Vehicle of {src} with thrust_max_n derated by {derate!r} "
+             f"(case {record['case']} of an envelope run).", ""]
+    env = data.pop("envelope", {})
+    data["thrust_max_n"] = float(data["thrust_max_n"]) * derate
+    for k, v in data.items():
+        lines.append(f"{k} = {_toml_value(v)}")
+    lines += ["", "[envelope]"] + [f"{k} = {_toml_value(v)}" for k, v in env.items()]
+    path = Path(out_dir) / f"case-{record['case']}-vehicle.toml"
+    write_atomic(path, "\n".join(lines) + "\n")
+    return path
+
+
+def _toml_value(v):
+    if isinstance(v, str):
+        return json.dumps(v)
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, list):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    return repr(float(v)) if isinstance(v, float) else repr(v)

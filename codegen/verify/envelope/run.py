@@ -1,0 +1,249 @@
+"""A campaign run: its manifest (created, or checked on resume) and running its cases."""
+
+from __future__ import annotations
+
+import json
+import math
+import sys
+import time
+from pathlib import Path
+
+from codegen import __version__
+from codegen.errors import InputError
+from codegen.fsutil import PACKAGE_DIR, write_atomic
+from codegen.verify.dispersions import Dispersions
+from codegen.verify.envelope.cases import CaseContext
+from codegen.verify.envelope.engines import run_dask, run_local
+from codegen.verify.envelope.records import (MANIFEST_NAME, RESULTS_NAME, RUN_FORMAT, ResultsLog,
+                                             read_results)
+from codegen.verify.envelope.solvers import check_derate_supported, open_solvers, read_tree
+
+
+#: Cases of the run used to set the stand-out threshold when none is given:
+#: the threshold is STAND_OUT_FACTOR times the median of their most
+#: iterations in one solve (rounded up).
+CALIBRATION_CASES = 16
+
+
+STAND_OUT_FACTOR = 1.5
+
+
+def _hms(seconds: float) -> str:
+    if not math.isfinite(seconds):
+        return "--:--"
+    s = int(round(seconds))
+    h, s = divmod(s, 3600)
+    m, s = divmod(s, 60)
+    return f"{h}:{m:02d}:{s:02d}" if h else f"{m:02d}:{s:02d}"
+
+
+class Progress:
+    """A progress bar with rate and ETA on stderr.
+
+    On a terminal it redraws one line; otherwise it prints a line every
+    ``every_s`` seconds (log files stay short)."""
+
+    def __init__(self, total: int, done: int = 0, stream=None, enabled: bool = True,
+                 every_s: float = 10.0):
+        self.total, self.done, self.start_done = total, done, done
+        self.stream = stream if stream is not None else sys.stderr
+        self.enabled = enabled
+        self.tty = hasattr(self.stream, "isatty") and self.stream.isatty()
+        self.every_s = 0.2 if self.tty else every_s
+        self.t0 = time.monotonic()
+        self.last = -math.inf
+
+    def line(self) -> str:
+        elapsed = time.monotonic() - self.t0
+        new = self.done - self.start_done
+        rate = new / elapsed if elapsed > 0 and new else 0.0
+        eta = (self.total - self.done) / rate if rate else math.inf
+        frac = self.done / self.total if self.total else 1.0
+        width = 30
+        bar = "#" * int(frac * width) + "." * (width - int(frac * width))
+        return (f"[{bar}] {self.done}/{self.total} {100 * frac:5.1f}%  "
+                f"{rate:6.1f} cases/s  elapsed {_hms(elapsed)}  ETA {_hms(eta)}")
+
+    def update(self, n: int = 1, force: bool = False) -> None:
+        self.done += n
+        now = time.monotonic()
+        if not self.enabled or (not force and now - self.last < self.every_s):
+            return
+        self.last = now
+        if self.tty:
+            self.stream.write("\r" + self.line())
+        else:
+            self.stream.write(self.line() + "\n")
+        self.stream.flush()
+
+    def finish(self) -> None:
+        self.update(0, force=True)
+        if self.enabled and self.tty:
+            self.stream.write("\n")
+            self.stream.flush()
+
+
+#: Manifest fields that must not change when a run is resumed.
+IDENTITY = ("solver_dir", "solver_manifest_sha256", "vehicle_sha256", "seed", "dispersions",
+            "reference_every", "stand_out_iterations")
+
+
+def code_sha256() -> str:
+    """Hash of the pdgc package's Python sources (the reference and the
+    parameter map live there): a run resumed under other code is flagged."""
+    import hashlib
+    h = hashlib.sha256()
+    pkg = PACKAGE_DIR
+    for f in sorted(pkg.rglob("*.py")):
+        h.update(str(f.relative_to(pkg)).encode() + b"\0" + f.read_bytes() + b"\0")
+    return h.hexdigest()
+
+
+def calibrate_stand_out(solver_dir: str, dispersions: Dispersions, cases: int) -> int:
+    """Stand-out threshold from the first few cases (deterministic)."""
+    n = min(cases, CALIBRATION_CASES)
+    if n == 0:
+        return 0
+    generated, _ = open_solvers(solver_dir)
+    counts = []
+    for i in range(n):
+        c = dispersions.case(i)
+        if c.thrust_derate is not None:
+            generated, _ = open_solvers(solver_dir, c.thrust_derate)
+        tr = generated.solve(list(c.position_m), list(c.velocity_mps), c.mass_kg, c.time_of_flight_s)
+        counts.append(tr.iterations_max)
+    counts.sort()
+    median = counts[(n - 1) // 2]
+    return max(1, math.ceil(STAND_OUT_FACTOR * median))
+
+
+def prepare_run(run_dir, solver_dir, dispersions: Dispersions, dispersions_path, cases: int,
+                reference_every: int, stand_out_iterations: int | None) -> dict:
+    """Create or check ``RUN_DIR/manifest.json``; return the manifest."""
+    if isinstance(cases, bool) or not isinstance(cases, int) or cases < 1:
+        raise InputError("--cases", cases, "must be an integer >= 1")
+    if isinstance(reference_every, bool) or not isinstance(reference_every, int) or reference_every < 0:
+        raise InputError("--reference-every", reference_every,
+                         "must be an integer >= 0 (0: only on cases that stand out)")
+    if stand_out_iterations is not None and stand_out_iterations < 1:
+        raise InputError("--stand-out-iterations", stand_out_iterations, "must be an integer >= 1")
+    from codegen.model.vehicle import load_vehicle
+    solver_dir = str(Path(solver_dir).resolve())
+    tree = read_tree(solver_dir)
+    vehicle = load_vehicle(Path(solver_dir) / "vehicle.toml")
+    # Check the dispersions against the tree's vehicle (mass range).
+    from codegen.verify.dispersions import parse_dispersions
+    parse_dispersions(_as_file_dict(dispersions), vehicle)
+    check_derate_supported(solver_dir, dispersions)
+
+    run_dir = Path(run_dir)
+    man_path = run_dir / MANIFEST_NAME
+    old = None
+    if man_path.exists():
+        try:
+            old = json.loads(man_path.read_text())
+        except json.JSONDecodeError as exc:
+            raise InputError("--out", str(run_dir), f"has a damaged {MANIFEST_NAME}: {exc}") from None
+        if old.get("format") != RUN_FORMAT:
+            raise InputError("--out", str(run_dir), f"holds no pdgc envelope run ({RUN_FORMAT})")
+    elif run_dir.exists() and any(run_dir.iterdir()):
+        raise InputError("--out", str(run_dir), "exists, is not empty and holds no envelope run; "
+                         "choose a new directory")
+
+    man = {
+        "format": RUN_FORMAT,
+        "pdgc_version": __version__,
+        "code_sha256": code_sha256(),
+        "solver_dir": solver_dir,
+        "solver_backend": tree["backend"],
+        "solver_manifest_sha256": tree["_sha256"],
+        "horizon": int(tree["horizon"]),
+        "vehicle_sha256": vehicle.source_sha256,
+        "dispersions_file": str(Path(dispersions_path).resolve()) if dispersions_path else None,
+        "dispersions": dispersions.as_dict(),
+        "seed": dispersions.seed,
+        "cases": cases,
+        "reference_every": reference_every,
+        "stand_out_iterations": stand_out_iterations,
+    }
+    if old is not None:
+        if stand_out_iterations is None:
+            man["stand_out_iterations"] = old.get("stand_out_iterations")
+        for key in IDENTITY:
+            if old.get(key) != man[key]:
+                shown = man[key] if key != "dispersions" else "(the dispersion file's distributions)"
+                raise InputError(key if key != "dispersions" else "--dispersions", shown,
+                                 f"differs from the run in {run_dir} "
+                                 f"({'its own' if key == 'dispersions' else repr(old.get(key))}); "
+                                 "resume with the same command or choose a new --out")
+        if old.get("code_sha256") != man["code_sha256"]:
+            print(f"pdgc: warning: the pdgc sources changed since the run in {run_dir} started; "
+                  "records written before and after may differ (start a new --out for a clean run)",
+                  file=sys.stderr)
+        man["created_utc"] = old.get("created_utc")
+        man["sessions"] = old.get("sessions", [])
+        man["stand_out_calibrated"] = old.get("stand_out_calibrated", False)
+    else:
+        man["created_utc"] = time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
+        man["stand_out_calibrated"] = stand_out_iterations is None
+        if stand_out_iterations is None:
+            man["stand_out_iterations"] = calibrate_stand_out(solver_dir, dispersions, cases)
+    run_dir.mkdir(parents=True, exist_ok=True)
+    write_atomic(man_path, json.dumps(man, indent=2) + "\n")
+    return man
+
+
+def _as_file_dict(d) -> dict:
+    """A Dispersions (or its as_dict()) as a document parse_dispersions takes."""
+    out = dict(d.as_dict() if isinstance(d, Dispersions) else d)
+    if out["thrust_derate"] is None:
+        del out["thrust_derate"]
+    return out
+
+
+def run_campaign(run_dir, manifest: dict, workers: int = 1, scheduler: str | None = None,
+                 progress: bool = True, stream=None) -> dict:
+    """Run every case of the manifest not yet in the results; return counts."""
+    run_dir = Path(run_dir)
+    results = run_dir / RESULTS_NAME
+    records = read_results(results)
+    done = set()
+    duplicates = 0
+    for r in records:
+        duplicates += r["case"] in done
+        done.add(r["case"])
+    todo = [i for i in range(manifest["cases"]) if i not in done]
+    from codegen.verify.dispersions import parse_dispersions
+    disp = parse_dispersions(_as_file_dict(manifest["dispersions"]))
+    ctx = CaseContext(solver_dir=manifest["solver_dir"], dispersions=disp,
+                      reference_every=manifest["reference_every"],
+                      stand_out_iterations=int(manifest["stand_out_iterations"] or 0))
+    bar = Progress(manifest["cases"], done=sum(1 for i in done if i < manifest["cases"]),
+                   stream=stream, enabled=progress)
+    log = ResultsLog(results)
+    t0 = time.monotonic()
+    started = time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
+    ran = [0]
+    engine = f"dask scheduler {scheduler}" if scheduler else \
+        f"local pool, {workers} worker{'s' if workers != 1 else ''}"
+    try:
+        def on_record(rec):
+            log.append(rec)
+            ran[0] += 1
+            bar.update(1)
+
+        if todo:
+            if scheduler:
+                run_dask(ctx, todo, scheduler, on_record)
+            else:
+                run_local(ctx, todo, workers, on_record)
+    finally:
+        log.close()
+        bar.finish()
+        wall = time.monotonic() - t0
+        if ran[0]:
+            manifest.setdefault("sessions", []).append(
+                {"started_utc": started, "engine": engine, "ran": ran[0], "wall_s": wall})
+            write_atomic(run_dir / MANIFEST_NAME, json.dumps(manifest, indent=2) + "\n")
+    return {"resumed_from": len(done), "ran": ran[0], "todo": len(todo), "duplicates": duplicates,
+            "wall_s": wall, "engine": engine}
