@@ -17,34 +17,16 @@ from codegen.reference import ReferenceSolver
 
 
 ROOT = Path(__file__).resolve().parent.parent
-
-
 BENCH_DIR = Path(__file__).resolve().parent
-
-
 DEMO_VEHICLE = ROOT / "examples" / "demo_vehicle.toml"
-
-
 RESULTS_DIR = BENCH_DIR / "results"
-
-
 #: The demo's nominal state and a time of flight feasible at every horizon.
 NOMINAL = ((1500.0, 0.0, 1500.0), (-50.0, 0.0, -40.0), 1900.0)
-
-
 FIXED_TOF_S = 40.0
-
-
 BACKENDS = ("native", "cvxpygen-ecos", "cvxpygen-qoco")
-
-
 LABELS = {"native": "native", "cvxpygen-ecos": "ECOS (cvxpygen)",
           "cvxpygen-qoco": "QOCOGEN (cvxpygen)", "reference": "reference (CVXPY+Clarabel)"}
-
-
 REFERENCE = "reference"
-
-
 #: Why QOCOGEN stops early. Measured on this project's 2-core machine:
 #: N = 5 about 5 s to generate and 20 s to compile; N = 20 about 16-45 s
 #: and 160-235 s; N = 50 about 90 s and 160 s (4.6 MB of C). cvxpygen's
@@ -55,11 +37,7 @@ QOCO_CAP_REASON = ("QOCOGEN writes its KKT factorisation out as straight-line C,
                    "and compile time grow steeply with N (measured on this 2-core machine: "
                    "N=20 about 16-45 s + 160-235 s, N=50 about 90 s + 160 s); above N={cap} one "
                    "tree alone would take a large share of the 30-minute budget of `make bench`.")
-
-
 MAX_REPS = 20000
-
-
 #: Progress lines on the terminal (the smoke test turns them off). Under
 #: pytest, bench/conftest.py points "stream" at a copy of the terminal's stderr
 #: taken before output capture, so the lines show while the tests run.

@@ -21,14 +21,8 @@ from codegen.sim.tree import _tree_identity, load_guidance_solver
 
 
 RECORDS_FILE = "runs.jsonl"
-
-
 MANIFEST_FILE = "manifest.json"
-
-
 SUMMARY_FILE = "summary.json"
-
-
 REPORT_FILE = "report.html"
 
 

@@ -13,11 +13,7 @@ from codegen.verify.envelope.solvers import DRY_RUN_BACKEND
 
 
 RUN_FORMAT = "pdgc-envelope-run/1"
-
-
 RESULTS_NAME = "results.jsonl"
-
-
 MANIFEST_NAME = "manifest.json"
 
 

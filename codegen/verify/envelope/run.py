@@ -23,8 +23,6 @@ from codegen.verify.envelope.solvers import check_derate_supported, open_solvers
 #: the threshold is STAND_OUT_FACTOR times the median of their most
 #: iterations in one solve (rounded up).
 CALIBRATION_CASES = 16
-
-
 STAND_OUT_FACTOR = 1.5
 
 

@@ -10,8 +10,6 @@ from codegen.verify.envelope.records import derated_vehicle_file, load_run, repl
 
 
 PERCENTILES = (50.0, 90.0, 99.0, 99.9)
-
-
 WORST_CASES = 10
 
 

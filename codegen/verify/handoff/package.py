@@ -21,8 +21,6 @@ from codegen.verify.handoff.tools import (CPPCHECK_FLAGS, M7_DP_FLAGS, RELAXED_F
 
 #: Fixed modification time of every tar entry (2000-01-01T00:00:00Z).
 TAR_MTIME = 946684800
-
-
 CAUTION = ("This code is NOT flight-qualified. It was generated and checked by a "
            "design tool; before any use on a vehicle it needs independent verification and "
            "validation under the program's software assurance process, against the "

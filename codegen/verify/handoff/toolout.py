@@ -50,8 +50,6 @@ def _parse_size(out: str) -> dict:
 
 
 _CI_NODE = re.compile(r'node:\s*\{\s*title:\s*"([^"]+)"\s*label:\s*"([^"]*)"')
-
-
 _CI_EDGE = re.compile(r'edge:\s*\{\s*sourcename:\s*"([^"]+)"\s*targetname:\s*"([^"]+)"')
 
 

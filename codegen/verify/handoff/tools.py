@@ -8,28 +8,14 @@ import subprocess
 
 
 STRICT_FLAGS = "-std=c99 -Wall -Wextra -Wpedantic -Wshadow -Wconversion -Werror"
-
-
 RELAXED_FLAGS = "-std=c99 -Wall -Wextra -Werror"
-
-
 M7_DP_FLAGS = "-mcpu=cortex-m7 -mthumb -mfpu=fpv5-d16 -mfloat-abi=hard"
-
-
 M7_SP_FLAGS = "-mcpu=cortex-m7 -mthumb -mfpu=fpv5-sp-d16 -mfloat-abi=hard"
-
-
 CPPCHECK_FLAGS = ("--std=c99 --enable=warning,style,performance,portability "
                   "--error-exitcode=1 --inline-suppr --quiet")
-
-
 REQUIRED_TOOLS = ("cc", "gcov", "cppcheck", "arm-none-eabi-gcc", "arm-none-eabi-size",
                   "arm-none-eabi-nm", "arm-linux-gnueabihf-gcc", "qemu-arm")
-
-
 ARMHF_SYSROOT = "/usr/arm-linux-gnueabihf"
-
-
 STEP_TIMEOUT_S = 900
 
 
