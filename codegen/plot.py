@@ -1,7 +1,9 @@
-"""Pictures of a descent plan: where a picture beats a table."""
+"""Pictures: a descent plan (where a picture beats a table), and any figure as
+a data URI for the self-contained reports."""
 
 from __future__ import annotations
 
+import base64
 import io
 import math
 
@@ -86,3 +88,12 @@ def plot_trajectory(traj: Trajectory, vehicle: Vehicle, path, target_m=(0.0, 0.0
     fig.savefig(buf, format="png", dpi=90)
     plt.close(fig)
     write_atomic(path, buf.getvalue())
+
+
+def figure_png_base64(fig, dpi: int = 100) -> str:
+    """Render a matplotlib figure to a ``data:image/png;base64,...`` URI and close it."""
+    import matplotlib.pyplot as plt
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi, bbox_inches="tight")
+    plt.close(fig)
+    return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")

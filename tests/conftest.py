@@ -1,5 +1,9 @@
 """Shared fixtures: the invented demo vehicle and small helpers."""
 
+import os
+import re
+import shutil
+import subprocess
 from pathlib import Path
 
 import pytest
@@ -31,3 +35,35 @@ def paper_example_vehicle():
         speed_max_mps=500.0, gravity_mps2=3.7114,
         envelope=dict(position_min_m=[0.0, 0.0, 1000.0], position_max_m=[2000.0, 0.0, 1500.0],
                       velocity_min_mps=[100.0, 0.0, -75.0], velocity_max_mps=[100.0, 0.0, -75.0])))
+
+
+def chromium():
+    """Debian's chromium (listed in .ci/debian-packages): a failure in CI, a skip elsewhere."""
+    for name in ("chromium", "chromium-browser"):
+        path = shutil.which(name)
+        if path:
+            return path
+    if os.environ.get("CI"):
+        pytest.fail("chromium is missing: .ci/debian-packages must list it")
+    pytest.skip("chromium is not installed")
+
+
+def render_in_chromium(html_path, tmp_path) -> dict:
+    """Open a report in headless Chromium; its DOM after the page's script ran,
+    the image counts the script wrote on <body>, and the console errors."""
+    cmd = [chromium(), "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+           "--no-first-run", "--disable-background-networking", "--disable-component-update",
+           "--disable-sync", f"--user-data-dir={tmp_path / 'profile'}", "--enable-logging=stderr",
+           "--v=0", "--virtual-time-budget=5000", "--dump-dom", Path(html_path).as_uri()]
+    done = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr[-2000:]
+    dom = done.stdout
+    body = re.search(r"<body([^>]*)>", dom).group(1)
+
+    def count(name):
+        m = re.search(rf'{name}="(\d+)"', body)
+        return int(m.group(1)) if m else None
+
+    return {"dom": dom, "rendered": 'data-rendered="yes"' in body,
+            "images": count("data-images"), "images_ok": count("data-images-ok"),
+            "errors": [ln for ln in done.stderr.splitlines() if "CONSOLE" in ln or "Uncaught" in ln]}

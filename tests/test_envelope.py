@@ -9,7 +9,6 @@ import contextlib
 import io
 import json
 import os
-import re
 import shlex
 import shutil
 import signal
@@ -27,7 +26,7 @@ from codegen.verify.envelope import run as erun, solvers as esolvers, summary as
 from codegen.verify.dispersions import load_dispersions
 from codegen.errors import InputError
 from codegen.model.trajectory import OPTIMAL
-from conftest import DEMO_VEHICLE, ROOT
+from conftest import DEMO_VEHICLE, ROOT, render_in_chromium
 
 PDGC = [sys.executable, "-m", "codegen.cli"]
 
@@ -233,41 +232,21 @@ def test_worst_cases_replay_to_the_same_status_and_iterations(setup, straight_ru
             assert got[key] == rec[key], (w["replay"], key)
 
 
-def chromium():
-    for name in ("chromium", "chromium-browser"):
-        path = shutil.which(name)
-        if path:
-            return path
-    if os.environ.get("CI"):
-        pytest.fail("chromium is missing: .ci/debian-packages must list it")
-    pytest.skip("chromium is not installed")
-
-
 def test_report_renders_in_headless_chromium(tmp_path, straight_run):
     run = straight_run[0]
     s = ereport.write_report(run, worst=3)
     assert json.loads((run / "summary.json").read_text()) == json.loads(json.dumps(s))
     html = (run / "report.html").read_text()
     assert "http://" not in html and "https://" not in html   # self-contained
-    browser = chromium()
-    cmd = [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
-           "--no-first-run", "--disable-background-networking", "--disable-component-update",
-           "--disable-sync", f"--user-data-dir={tmp_path / 'profile'}", "--enable-logging=stderr",
-           "--v=0", "--virtual-time-budget=5000", "--dump-dom", (run / "report.html").as_uri()]
-    done = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
-    assert done.returncode == 0, done.stderr[-2000:]
-    dom = done.stdout
-    body = re.search(r"<body([^>]*)>", dom).group(1)
-    assert 'data-rendered="yes"' in body            # the page's script ran to its end
-    n_img = int(re.search(r'data-images="(\d+)"', body).group(1))
-    n_ok = int(re.search(r'data-images-ok="(\d+)"', body).group(1))
-    assert n_img >= 4 and n_ok == n_img             # every embedded PNG decoded
+    page = render_in_chromium(run / "report.html", tmp_path)
+    dom = page["dom"]
+    assert page["rendered"]                          # the page's script ran to its end
+    assert page["images"] >= 4 and page["images_ok"] == page["images"]   # every PNG decoded
     for anchor in ("overview", "statuses", "iterations", "solve-time", "accuracy", "feasibility",
                    "fuel-divert", "worst-cases", "inputs"):
         assert f'id="{anchor}"' in dom
     assert "pdgc solve" in dom
-    errors = [ln for ln in done.stderr.splitlines() if "CONSOLE" in ln or "Uncaught" in ln]
-    assert errors == []
+    assert page["errors"] == []
 
 
 def test_derating_dry_run_and_refusal(tmp_path, setup, monkeypatch):

@@ -31,7 +31,7 @@ from codegen.verify.handoff.package import TAR_MTIME
 from codegen.verify.handoff.run import handoff
 from codegen.verify.handoff.toolout import worst_stack
 from codegen.errors import InputError
-from conftest import DEMO_VEHICLE, ROOT
+from conftest import DEMO_VEHICLE, ROOT, render_in_chromium
 
 HORIZON = 10
 IN_CI = os.environ.get("CI") == "true"
@@ -439,6 +439,14 @@ def test_record_states_the_figures(built):
         for c in r["checks"]["coverage"]["files"]:
             assert f"| {c['file']} | {c['lines']} | {c['executed']} |" in md
     assert "<script src" not in html and "http" not in html.replace("http-equiv", "")
+
+
+def test_record_renders_in_headless_chromium(built, tmp_path):
+    page = render_in_chromium(built["pkg"] / "record" / "verification.html", tmp_path)
+    assert page["rendered"] and page["images"] == page["images_ok"] == 0
+    for anchor in ("caution", "identification", "vehicle-constants", "test-vectors", "manifest"):
+        assert f'id="{anchor}"' in page["dom"]
+    assert page["errors"] == []
 
 
 def test_expected_outputs_in_the_c_data_are_the_reference_answers(built, demo_vehicle):

@@ -22,6 +22,7 @@ from codegen.sim.settings import Draw, Settings, default_settings
 from codegen.sim.tree import load_guidance_solver, write_dry_run_tree
 from codegen.sim.truth import TruthModel, propagate
 from codegen.model.vehicle import G0_MPS2, load_vehicle
+from conftest import render_in_chromium
 
 ROOT = Path(__file__).resolve().parent.parent
 VEHICLE = ROOT / "examples" / "demo_vehicle.toml"
@@ -336,11 +337,16 @@ def test_resume_refuses_other_settings(demo_batch, dry_tree, solver):
         run_batch(dry_tree, 3, 11, errors, dataclasses.replace(s, rate_hz=1.0), out_a, solver=solver)
 
 
-def test_report_is_self_contained(demo_batch):
+def test_report_is_self_contained(demo_batch, tmp_path):
     _, _, out, summary = demo_batch
     html = (out / "report.html").read_text()
     assert html.count('src="data:image/png;base64,') == 4
     assert "http://" not in html and "https://" not in html
+    page = render_in_chromium(out / "report.html", tmp_path)
+    assert page["rendered"] and page["images"] == page["images_ok"] == 4
+    for anchor in ("statistics", "figures", "runs", "model"):
+        assert f'id="{anchor}"' in page["dom"]
+    assert page["errors"] == []
     assert json.loads((out / "summary.json").read_text())["runs"] == 3 == summary["runs"]
 
 

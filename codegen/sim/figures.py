@@ -10,12 +10,12 @@ from codegen.model.vehicle import Vehicle
 from codegen.sim.loop import LANDED
 
 
-def _figures(records, vehicle: Vehicle, target_m) -> list:
+def figures(records, vehicle: Vehicle, target_m) -> list:
     import matplotlib
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    from codegen.report import figure_png_base64
+    from codegen.plot import figure_png_base64
 
     landed = [r for r in records if r["status"] == LANDED]
     tx, ty = target_m[0], target_m[1]

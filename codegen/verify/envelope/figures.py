@@ -9,7 +9,7 @@ STATUS_COLOURS = {"optimal": "#2a7f2a", "least_miss": "#e08a00", "infeasible": "
                   "iteration_limit": "#7a1fa2", "numerical_trouble": "#1f5fbf", "bad_input": "#555555"}
 
 
-def _figures(records) -> dict:
+def figures(records) -> dict:
     """The report's pictures, as data URIs."""
     import matplotlib
     matplotlib.use("Agg")
@@ -17,7 +17,7 @@ def _figures(records) -> dict:
     import matplotlib.ticker
     import numpy as np
 
-    from codegen.report import figure_png_base64
+    from codegen.plot import figure_png_base64
 
     figs = {}
     gens = [r["generated"] for r in records]

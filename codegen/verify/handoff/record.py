@@ -5,8 +5,11 @@ from __future__ import annotations
 import json
 import re
 
+from markupsafe import Markup, escape
+
 from codegen.emit import environment
 from codegen.model import tofsearch
+from codegen.report import render
 from codegen.verify.handoff.checks import Checks
 from codegen.verify.handoff.package import CAUTION
 from codegen.verify.handoff.record_blocks import _code, _g, _table, _text
@@ -192,7 +195,6 @@ def _campaign_blocks(s: dict) -> list:
 
 def render_record(sections: list, title: str, intro: list) -> tuple:
     """(Markdown, HTML) of the record."""
-    from codegen import report as R
     env = environment()
     md = env.get_template("handoff/record.md.j2").render(
         title=title, intro=intro, sections=[{"title": s["title"], "blocks": [
@@ -200,24 +202,25 @@ def render_record(sections: list, title: str, intro: list) -> tuple:
                  rows=[[c.replace("|", "\\|").replace("\n", " ") for c in r] for r in b["rows"]])
             if b["kind"] == "table" else b for b in s["blocks"]]} for s in sections])
 
-    def inline(t):
-        h = R.esc(t)
-        h = re.sub(r"\*\*(.+?)\*\*", r"<strong>\1</strong>", h)
-        return re.sub(r"`([^`]+)`", r"<code>\1</code>", h)
-
-    html_secs = []
-    for i, s in enumerate(sections):
-        parts = []
-        for b in s["blocks"]:
-            if b["kind"] == "text":
-                cls = ' class="caution"' if s["title"] == "Caution" else ""
-                parts.append(f"<p{cls}>{inline(b['text'])}</p>")
-            elif b["kind"] == "code":
-                parts.append(f"<pre><code>{R.esc(b['text'])}</code></pre>")
-            else:
-                parts.append(R.table(b["headers"], [[R.Raw(inline(c)) for c in r] for r in b["rows"]],
-                                     text_columns=tuple(range(len(b["headers"])))))
-        html_secs.append((re.sub(r"[^a-z0-9]+", "-", s["title"].lower()).strip("-"), s["title"],
-                          "\n".join(parts)))
-    html = R.page(title, html_secs, intro="\n".join(f"<p>{inline(p)}</p>" for p in intro))
+    html = render("handoff_record.html.j2", title=title, intro=[_inline(p) for p in intro],
+                  sections=[{"anchor": re.sub(r"[^a-z0-9]+", "-", s["title"].lower()).strip("-"),
+                             "title": s["title"], "caution": s["title"] == "Caution",
+                             "blocks": [_html_block(b) for b in s["blocks"]]}
+                            for s in sections])
     return md, html
+
+
+def _inline(text: str) -> Markup:
+    """Escaped text with the record's **bold** and `code` as tags."""
+    h = str(escape(text))
+    h = re.sub(r"\*\*(.+?)\*\*", r"<strong>\1</strong>", h)
+    return Markup(re.sub(r"`([^`]+)`", r"<code>\1</code>", h))
+
+
+def _html_block(b: dict) -> dict:
+    if b["kind"] == "text":
+        return {"kind": "text", "text": _inline(b["text"])}
+    if b["kind"] == "code":
+        return b
+    return {"kind": "table", "headers": b["headers"],
+            "rows": [[_inline(c) for c in r] for r in b["rows"]]}
