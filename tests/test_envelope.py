@@ -26,6 +26,7 @@ from codegen.verify.envelope import run as erun, solvers as esolvers, summary as
 from codegen.verify.dispersions import load_dispersions
 from codegen.errors import InputError
 from codegen.model.trajectory import OPTIMAL
+from codegen.progress import Progress
 from conftest import DEMO_VEHICLE, ROOT, render_in_chromium
 
 PDGC = [sys.executable, "-m", "codegen.cli"]
@@ -291,12 +292,17 @@ def test_cli_errors_name_the_field(tmp_path, setup, capsys):
 
 
 def test_progress_line_shows_rate_and_eta():
-    out = io.StringIO()
-    bar = erun.Progress(10, done=2, stream=out, every_s=0.0)
+    out = io.StringIO()            # not a terminal: plain lines, no bar redrawn with \r
+    bar = Progress(10, "pdgc envelope", "cases", initial=2, stream=out, line_every_s=0.0)
     bar.update(3)
-    bar.finish()
+    bar.close()
     text = out.getvalue()
-    assert "5/10" in text and "cases/s" in text and "ETA" in text
+    assert "5/10" in text and "cases/s" in text and "ETA" in text and "\r" not in text
+    quiet = io.StringIO()
+    bar = Progress(10, "pdgc envelope", "cases", stream=quiet, enabled=False)
+    bar.update(10)
+    bar.close()
+    assert quiet.getvalue() == ""
 
 
 def test_torn_last_line_is_dropped_and_damage_is_refused(tmp_path):

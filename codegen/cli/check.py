@@ -2,9 +2,8 @@
 
 from __future__ import annotations
 
-import sys
-
 from codegen.cli.common import print_table
+from codegen.progress import Progress
 
 
 def register(sub) -> None:
@@ -20,19 +19,14 @@ def register(sub) -> None:
     s.set_defaults(func=run)
 
 
-def _progress(done: int, total: int) -> None:
-    if sys.stderr.isatty() or done % max(1, total // 10) == 0:
-        print(f"\rpdgc check: {done}/{total} cases", end="" if sys.stderr.isatty() else "\n",
-              file=sys.stderr, flush=True)
-
-
 def run(args) -> int:
     from codegen.verify.check import check_tree, replay_line, results_json
 
-    r = check_tree(args.dir, args.cases, args.seed, args.search_every, args.tol_objective,
-                   on_case=_progress)
-    if sys.stderr.isatty():
-        print(file=sys.stderr)
+    # Off a terminal: a line at every tenth of the cases, as before the bar.
+    with Progress(max(args.cases, 0), "pdgc check", "cases",
+                  line_every=max(1, args.cases // 10)) as bar:
+        r = check_tree(args.dir, args.cases, args.seed, args.search_every, args.tol_objective,
+                       on_case=lambda done, total: bar.update())
     gen, s, tol, length = r.solver, r.summary, r.tolerances, r.length_m
     vehicle = gen.vehicle
     ms = 1e3

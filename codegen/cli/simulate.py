@@ -6,6 +6,7 @@ import sys
 
 from codegen.cli.common import (finite_float, int_at_least, parse_state, parse_vector3,
                                  print_table)
+from codegen.progress import Progress
 
 
 def register(sub) -> None:
@@ -64,22 +65,34 @@ def run(args) -> int:
         overrides["target_m"] = tuple(parse_vector3("--target", args.target))
     settings = default_settings(solver.vehicle, **overrides)
 
+    # A bar on a terminal only; the line per run (unless --quiet) is written
+    # above it, and is all there is in a log, as before the bar.
+    bar = Progress(0, "pdgc simulate", "runs", enabled=False)
+
     def progress(kind, info):
+        nonlocal bar
         if kind == "start":
             print(f"pdgc: simulate: {info['runs']} runs, {info['done']} already in {args.out}, "
                   f"{info['todo']} to fly", file=sys.stderr, flush=True)
-        elif not args.quiet:
-            r = info
+            bar = Progress(info["runs"], "pdgc simulate", "runs", initial=info["done"],
+                           enabled=sys.stderr.isatty())
+            return
+        r = info
+        if not args.quiet:
             if r["status"] == "landed":
-                print(f"run {r['run']:5d}: miss {r['position_error_m']:.3f} m, velocity error "
-                      f"{r['velocity_error_mps']:.3f} m/s, fuel {r['fuel_kg']:.2f} kg, "
-                      f"solves {r['solves']} ({r['failures']} failed), "
-                      f"worst solve {r['worst_solve_time_s'] * 1e3:.2f} ms", file=sys.stderr, flush=True)
+                bar.write(f"run {r['run']:5d}: miss {r['position_error_m']:.3f} m, velocity error "
+                          f"{r['velocity_error_mps']:.3f} m/s, fuel {r['fuel_kg']:.2f} kg, "
+                          f"solves {r['solves']} ({r['failures']} failed), "
+                          f"worst solve {r['worst_solve_time_s'] * 1e3:.2f} ms")
             else:
-                print(f"run {r['run']:5d}: {r['status']}", file=sys.stderr, flush=True)
+                bar.write(f"run {r['run']:5d}: {r['status']}")
+        bar.update()
 
-    summary = run_batch(args.dir, args.runs, args.seed, errors, settings, args.out,
-                        progress=progress, solver=solver)
+    try:
+        summary = run_batch(args.dir, args.runs, args.seed, errors, settings, args.out,
+                            progress=progress, solver=solver)
+    finally:
+        bar.close()
 
     def stat(d, unit, digits=4):
         if not d["n"]:

@@ -5,7 +5,10 @@ from __future__ import annotations
 import json
 import os
 import shlex
+import tomllib
 from pathlib import Path
+
+import tomli_w
 
 from codegen.errors import InputError
 from codegen.fsutil import complete_lines, write_atomic
@@ -91,27 +94,12 @@ def replay_command(manifest: dict, record: dict, vehicle_path=None) -> str:
 
 def derated_vehicle_file(manifest: dict, record: dict, out_dir) -> Path:
     """Write the derated vehicle of a derated case (for its replay line)."""
-    import tomllib
     src = Path(manifest["solver_dir"]) / "vehicle.toml"
     data = tomllib.loads(src.read_text())
     derate = record["inputs"]["thrust_derate"]
-    lines = [f"# Vehicle of {src} with thrust_max_n derated by {derate!r} "
-             f"(case {record['case']} of an envelope run).", ""]
-    env = data.pop("envelope", {})
     data["thrust_max_n"] = float(data["thrust_max_n"]) * derate
-    for k, v in data.items():
-        lines.append(f"{k} = {_toml_value(v)}")
-    lines += ["", "[envelope]"] + [f"{k} = {_toml_value(v)}" for k, v in env.items()]
+    head = (f"# Vehicle of {src} with thrust_max_n derated by {derate!r} "
+            f"(case {record['case']} of an envelope run).\n\n")
     path = Path(out_dir) / f"case-{record['case']}-vehicle.toml"
-    write_atomic(path, "\n".join(lines) + "\n")
+    write_atomic(path, head + tomli_w.dumps(data))
     return path
-
-
-def _toml_value(v):
-    if isinstance(v, str):
-        return json.dumps(v)
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, list):
-        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
-    return repr(float(v)) if isinstance(v, float) else repr(v)

@@ -11,6 +11,7 @@ from pathlib import Path
 from codegen import __version__
 from codegen.errors import InputError
 from codegen.fsutil import PACKAGE_DIR, write_atomic
+from codegen.progress import Progress
 from codegen.verify.dispersions import Dispersions
 from codegen.verify.envelope.cases import CaseContext
 from codegen.verify.envelope.engines import run_dask, run_local
@@ -24,61 +25,8 @@ from codegen.verify.envelope.solvers import check_derate_supported, open_solvers
 #: iterations in one solve (rounded up).
 CALIBRATION_CASES = 16
 STAND_OUT_FACTOR = 1.5
-
-
-def _hms(seconds: float) -> str:
-    if not math.isfinite(seconds):
-        return "--:--"
-    s = int(round(seconds))
-    h, s = divmod(s, 3600)
-    m, s = divmod(s, 60)
-    return f"{h}:{m:02d}:{s:02d}" if h else f"{m:02d}:{s:02d}"
-
-
-class Progress:
-    """A progress bar with rate and ETA on stderr.
-
-    On a terminal it redraws one line; otherwise it prints a line every
-    ``every_s`` seconds (log files stay short)."""
-
-    def __init__(self, total: int, done: int = 0, stream=None, enabled: bool = True,
-                 every_s: float = 10.0):
-        self.total, self.done, self.start_done = total, done, done
-        self.stream = stream if stream is not None else sys.stderr
-        self.enabled = enabled
-        self.tty = hasattr(self.stream, "isatty") and self.stream.isatty()
-        self.every_s = 0.2 if self.tty else every_s
-        self.t0 = time.monotonic()
-        self.last = -math.inf
-
-    def line(self) -> str:
-        elapsed = time.monotonic() - self.t0
-        new = self.done - self.start_done
-        rate = new / elapsed if elapsed > 0 and new else 0.0
-        eta = (self.total - self.done) / rate if rate else math.inf
-        frac = self.done / self.total if self.total else 1.0
-        width = 30
-        bar = "#" * int(frac * width) + "." * (width - int(frac * width))
-        return (f"[{bar}] {self.done}/{self.total} {100 * frac:5.1f}%  "
-                f"{rate:6.1f} cases/s  elapsed {_hms(elapsed)}  ETA {_hms(eta)}")
-
-    def update(self, n: int = 1, force: bool = False) -> None:
-        self.done += n
-        now = time.monotonic()
-        if not self.enabled or (not force and now - self.last < self.every_s):
-            return
-        self.last = now
-        if self.tty:
-            self.stream.write("\r" + self.line())
-        else:
-            self.stream.write(self.line() + "\n")
-        self.stream.flush()
-
-    def finish(self) -> None:
-        self.update(0, force=True)
-        if self.enabled and self.tty:
-            self.stream.write("\n")
-            self.stream.flush()
+#: Off a terminal, a progress line this often (log files stay short).
+PROGRESS_LINE_EVERY_S = 10.0
 
 
 #: Manifest fields that must not change when a run is resumed.
@@ -216,8 +164,9 @@ def run_campaign(run_dir, manifest: dict, workers: int = 1, scheduler: str | Non
     ctx = CaseContext(solver_dir=manifest["solver_dir"], dispersions=disp,
                       reference_every=manifest["reference_every"],
                       stand_out_iterations=int(manifest["stand_out_iterations"] or 0))
-    bar = Progress(manifest["cases"], done=sum(1 for i in done if i < manifest["cases"]),
-                   stream=stream, enabled=progress)
+    bar = Progress(manifest["cases"], "pdgc envelope", "cases",
+                   initial=sum(1 for i in done if i < manifest["cases"]), stream=stream,
+                   enabled=progress, line_every_s=PROGRESS_LINE_EVERY_S)
     log = ResultsLog(results)
     t0 = time.monotonic()
     started = time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
@@ -237,7 +186,7 @@ def run_campaign(run_dir, manifest: dict, workers: int = 1, scheduler: str | Non
                 run_local(ctx, todo, workers, on_record)
     finally:
         log.close()
-        bar.finish()
+        bar.close()
         wall = time.monotonic() - t0
         if ran[0]:
             manifest.setdefault("sessions", []).append(

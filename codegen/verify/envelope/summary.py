@@ -2,8 +2,9 @@
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
+
+import numpy as np
 
 from codegen.model.trajectory import SOLVED
 from codegen.verify.envelope.records import derated_vehicle_file, load_run, replay_command
@@ -13,21 +14,17 @@ PERCENTILES = (50.0, 90.0, 99.0, 99.9)
 WORST_CASES = 10
 
 
-def nearest_rank(sorted_values, p: float):
-    """Nearest-rank percentile: the smallest value with at least p % of values at or below it."""
-    n = len(sorted_values)
-    k = min(n, max(1, math.ceil(p / 100.0 * n)))
-    return sorted_values[k - 1]
-
-
 def stats(values) -> dict | None:
+    """Count, best, worst, mean and nearest-rank percentiles (the smallest value
+    with at least p % of values at or below it: numpy's "inverted_cdf")."""
     vals = sorted(v for v in values if v is not None)
     if not vals:
         return None
     out = {"count": len(vals), "worst": vals[-1], "best": vals[0],
            "mean": float(sum(vals)) / len(vals)}
-    for p in PERCENTILES:
-        out[f"p{p:g}"] = nearest_rank(vals, p)
+    ranks = np.percentile(np.asarray(vals), PERCENTILES, method="inverted_cdf")
+    for p, v in zip(PERCENTILES, ranks.tolist()):      # ints stay ints, as recorded
+        out[f"p{p:g}"] = v
     return out
 
 
