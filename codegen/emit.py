@@ -30,7 +30,7 @@ from codegen.model.canonical import extract
 from codegen.errors import InputError
 from codegen.fsutil import TEMPLATES_DIR, swap_in_directory
 from codegen.model.problem import MASS_FLOOR_FRACTION, DescentProblem
-from codegen.model.vehicle import VEHICLE_KEYS, load_vehicle
+from codegen.model.vehicle import DEMO_VEHICLE_NAME, VEHICLE_KEYS, load_vehicle
 
 TEMPLATES = TEMPLATES_DIR
 DEFAULT_PREFIX = "pdg"
@@ -73,6 +73,7 @@ def environment() -> jinja2.Environment:
                              undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
                              autoescape=False)
     env.filters["c"] = c_literal
+    env.globals["demo_vehicle_name"] = DEMO_VEHICLE_NAME     # for templates/caution.j2
     return env
 
 

@@ -19,6 +19,7 @@ import jinja2
 from markupsafe import Markup
 
 from codegen.fsutil import TEMPLATES_DIR
+from codegen.model.vehicle import DEMO_VEHICLE_NAME
 
 
 def fmt(x, digits: int = 4):
@@ -45,9 +46,17 @@ def environment() -> jinja2.Environment:
                              undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
                              autoescape=True, trim_blocks=True, lstrip_blocks=True)
     env.filters["cell"] = fmt
+    env.globals["demo_vehicle_name"] = DEMO_VEHICLE_NAME     # for templates/caution.j2
     return env
 
 
 def render(name: str, **context) -> str:
     """templates/reports/NAME rendered with ``context``."""
     return environment().get_template(f"reports/{name}").render(**context)
+
+
+def caution_text(vehicle_name: str | None = None) -> str:
+    """The caution of templates/caution.j2 as plain text (vehicle names are
+    letters, digits, '-' and '_', so escaping leaves them as they are)."""
+    module = environment().get_template("caution.j2").module
+    return str(module.caution(vehicle_name))

@@ -47,7 +47,7 @@ MAY_IMPORT = {
     "emit": {"util", "model", "backends"},
     "bind": {"util", "model", "emit"},
     "plot": {"util", "model"},
-    "report": {"util"},
+    "report": {"util", "model"},
     "verify": {"util", "model", "reference", "emit", "bind", "plot", "report"},
     "sim": {"util", "model", "reference", "emit", "bind", "plot", "report"},
     "cli": {"util", "model", "reference", "backends", "emit", "bind", "plot", "report",

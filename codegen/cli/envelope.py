@@ -6,7 +6,7 @@ import os
 import sys
 from pathlib import Path
 
-from codegen.cli.common import int_at_least
+from codegen.cli.common import int_at_least, print_table
 from codegen.errors import InputError
 
 
@@ -92,11 +92,7 @@ def run(args) -> int:
     w = a["worst_fuel_rel_diff"]
     if w is not None:
         rows.append(("worst relative fuel difference", f"{w['value']:.3g} (case {w['case']})"))
-    width = max(len(k) for k, _ in rows)
-    for k, v in rows:
-        print(f"  {k:<{width}}  {v}")
-    print(f"  {'report':<{width}}  {out / 'report.html'}")
-    print(f"  {'summary':<{width}}  {out / 'summary.json'}")
+    print_table(rows + [("report", out / "report.html"), ("summary", out / "summary.json")])
     if not summary["complete"]:
         print("pdgc: campaign incomplete; run the same command again to resume", file=sys.stderr)
         return 1

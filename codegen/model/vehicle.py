@@ -22,6 +22,10 @@ from codegen.errors import suggest_key as _suggest
 G0_MPS2 = 9.80665
 
 # key -> (required, description). Order here is the order of the docs.
+#: Name of the invented demo vehicle (examples/demo_vehicle.toml, `pdgc init`):
+#: the caution of a tree or report says it is invented only for this one.
+DEMO_VEHICLE_NAME = "demo-lander"
+
 VEHICLE_KEYS = {
     "name": (True, "short identifier of the vehicle (letters, digits, - and _)"),
     "mass_wet_kg": (True, "mass with full propellant"),

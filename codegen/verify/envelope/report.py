@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import tomllib
 from pathlib import Path
 
 from codegen.fsutil import write_atomic
@@ -65,6 +66,7 @@ def render_report(summary: dict, records: list, manifest: dict) -> str:
                                 ("none" if d is None else parse_distribution(name, d).describe())])
     return render(
         "envelope.html.j2", figs=figs, solver_dir=manifest["solver_dir"],
+        vehicle_name=_vehicle_name(manifest),
         cases_done=summary["cases_done"], cases_planned=summary["cases_planned"],
         complete=summary["complete"], overview_rows=overview,
         status_rows=[[s, n, f"{100.0 * n / max(1, summary['cases_done']):.2f} %"]
@@ -84,6 +86,16 @@ def render_report(summary: dict, records: list, manifest: dict) -> str:
         dispersion_rows=dispersion_rows,
         session_rows=[[x.get("started_utc"), x.get("engine"), x.get("ran"), x.get("wall_s")]
                       for x in summary["sessions"]])
+
+
+def _vehicle_name(manifest: dict):
+    """The name in the tree's vehicle.toml, or None when it cannot be read
+    (the caution then speaks of the vehicle file in general)."""
+    try:
+        name = tomllib.loads((Path(manifest["solver_dir"]) / "vehicle.toml").read_text())["name"]
+    except (OSError, KeyError, tomllib.TOMLDecodeError):
+        return None
+    return name if isinstance(name, str) else None
 
 
 def write_report(run_dir, worst: int = WORST_CASES) -> dict:

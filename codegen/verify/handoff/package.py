@@ -21,12 +21,6 @@ from codegen.verify.handoff.tools import (CPPCHECK_FLAGS, M7_DP_FLAGS, RELAXED_F
 
 #: Fixed modification time of every tar entry (2000-01-01T00:00:00Z).
 TAR_MTIME = 946684800
-CAUTION = ("This code is NOT flight-qualified. It was generated and checked by a "
-           "design tool; before any use on a vehicle it needs independent verification and "
-           "validation under the program's software assurance process, against the "
-           "applicable standards (for example NASA-STD-8739.8 and NPR 7150.2, ECSS-E-ST-40C "
-           "and ECSS-Q-ST-80C, or DO-178C, as the program requires), and review by a licensed "
-           "engineer responsible for the vehicle. The vehicle data of the demo is invented.")
 
 
 def _c(x) -> str:
@@ -142,7 +136,7 @@ def package_files(tree_dir, manifest, vehicle, vectors, tol, failing=frozenset()
     headers += [f"test/{prefix}_vectors.h"]
     ctx = {"prefix": prefix, "PREFIX": prefix.upper(), "N": n, "version": __version__,
            "vehicle": vehicle, "precision": manifest["precision"], "count": len(vectors),
-           "tol": tol, "vectors": _vector_rows(vectors), "caution": CAUTION,
+           "tol": tol, "vectors": _vector_rows(vectors),
            "strict_flags": STRICT_FLAGS, "relaxed_flags": RELAXED_FLAGS,
            "relaxed_used": bool(failing), "include_dirs": manifest["build"]["include_dirs"] + ["test"],
            "defines": manifest["build"]["defines"], "headers": headers,

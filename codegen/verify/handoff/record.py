@@ -9,9 +9,8 @@ from markupsafe import Markup, escape
 
 from codegen.emit import environment
 from codegen.model import tofsearch
-from codegen.report import render
+from codegen.report import caution_text, render
 from codegen.verify.handoff.checks import Checks
-from codegen.verify.handoff.package import CAUTION
 from codegen.verify.handoff.record_blocks import _code, _g, _table, _text
 from codegen.verify.handoff.record_checks import _check_sections
 from codegen.verify.handoff.tools import _sha256
@@ -22,7 +21,7 @@ def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, camp
     prefix, n = manifest["prefix"], manifest["horizon"]
     sec = []
 
-    sec.append({"title": "Caution", "blocks": [_text(f"**{CAUTION}**")]})
+    sec.append({"title": "Caution", "blocks": [_text(f"**{caution_text(vehicle.name)}**")]})
 
     ident = [("vehicle", vehicle.name), ("vehicle file sha256", manifest["vehicle"]["sha256"]),
              ("horizon N (intervals)", n), ("precision", manifest["precision"]),
