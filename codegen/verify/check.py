@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from codegen import versions
 from codegen.model.problem import time_of_flight_bracket
 from codegen.reference import ReferenceSolver
 from codegen.model.trajectory import OPTIMAL
@@ -164,6 +165,8 @@ def run_check(args) -> int:
     from codegen.model.problem import Scaling
 
     gen = load_solver(args.dir)
+    for line in versions.warning_lines(gen.manifest.get("environment"), f"tree {args.dir}"):
+        print(f"pdgc check: {line}", file=sys.stderr)
     vehicle = gen.vehicle
     ref = ReferenceSolver(vehicle, gen.horizon)
     precision = gen.manifest.get("precision", "double")
