@@ -10,6 +10,7 @@ pyproject.toml without `make lock` fails here).
 
 import re
 import sys
+import sysconfig
 import tomllib
 from importlib import metadata
 
@@ -70,8 +71,13 @@ def test_pyproject_requirements_are_all_locked_within_their_ranges():
 
 
 def test_the_running_environment_is_exactly_the_lock():
+    # The venv's site-packages only: sys.path may also hold directories of
+    # distributions vendored inside others (setuptools/_vendor, once
+    # setuptools is imported, as cffi's build does), which are not installed.
+    site = sorted({sysconfig.get_paths()[k] for k in ("purelib", "platlib")})
+    assert all(p.startswith(sys.prefix) for p in site)
     installed = {}
-    for dist in metadata.distributions(path=[p for p in sys.path if p.startswith(sys.prefix)]):
+    for dist in metadata.distributions(path=site):
         installed[canonicalize_name(dist.metadata["Name"])] = dist.version
     lock = {n: v for n, (v, _) in locked().items()}
     for name in NOT_LOCKED:
