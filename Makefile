@@ -2,24 +2,51 @@
 #   make demo   create .venv, install, solve, generate, compile and check the demo
 #   make test   same install, then the test suite
 #   make bench  benchmarks (slow; writes bench/results/)
+#   make lock   re-resolve requirements.lock after editing pyproject.toml's
+#               dependencies (keeps every pin it can); make lock-upgrade moves
+#               every pin to the newest release (P=name: that package only)
 
 PYTHON ?= python3
 VENV   := .venv
 PY     := $(VENV)/bin/python
 PDGC   := $(VENV)/bin/pdgc
 STAMP  := $(VENV)/.installed-stamp
+# Exact versions and sha256 of every distribution, transitive ones and the
+# build backend included (pip-compile --generate-hashes; DEVELOPERS.md,
+# "Pinned dependencies").
+LOCK   := requirements.lock
+LOCK_VENV := .venv-lock
+PIP_TOOLS := pip-tools==7.6.2
+LOCK_FLAGS := --quiet --generate-hashes --allow-unsafe --strip-extras --all-build-deps \
+	--extra test --no-emit-index-url --no-emit-find-links
 DEMO_VEHICLE := examples/demo_vehicle.toml
 DEMO_OUT := demo-out
 
-.PHONY: install demo test bench clean
+.PHONY: install demo test bench clean lock lock-upgrade
 
 install: $(STAMP)
 
-$(STAMP): pyproject.toml
-	test -x $(PY) || $(PYTHON) -m venv $(VENV)
-	$(PY) -m pip install --quiet --upgrade pip
-	$(PY) -m pip install --quiet -e '.[test]'
+# A new venv each time the lock or pyproject.toml changes, so that it holds
+# exactly the locked set (pip install never removes what a lock dropped).
+# The venv's own pip (the one Python ships) installs the lock in hash-checking
+# mode: every distribution must match a locked sha256. pdgc itself goes in
+# last, editable, with no dependencies and the locked setuptools.
+$(STAMP): pyproject.toml $(LOCK)
+	$(PYTHON) -m venv --clear $(VENV)
+	$(PY) -m pip install --quiet --require-hashes -r $(LOCK)
+	$(PY) -m pip install --quiet --no-deps --no-build-isolation -e .
 	touch $(STAMP)
+
+$(LOCK_VENV)/bin/pip-compile:
+	$(PYTHON) -m venv --clear $(LOCK_VENV)
+	$(LOCK_VENV)/bin/pip install --quiet $(PIP_TOOLS)
+
+lock: $(LOCK_VENV)/bin/pip-compile
+	$(LOCK_VENV)/bin/pip-compile $(LOCK_FLAGS) --output-file $(LOCK) pyproject.toml
+
+lock-upgrade: $(LOCK_VENV)/bin/pip-compile
+	$(LOCK_VENV)/bin/pip-compile $(LOCK_FLAGS) $(if $(P),--upgrade-package $(P),--upgrade) \
+		--output-file $(LOCK) pyproject.toml
 
 # The committed demo tree is regenerated in place: with deterministic output
 # git sees no change unless the generator or the vehicle changed.

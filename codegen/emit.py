@@ -23,7 +23,7 @@ from pathlib import Path
 
 import jinja2
 
-from codegen import __version__
+from codegen import __version__, versions
 from codegen.model import tofsearch
 from codegen.backends import DEFAULT_BACKEND, get_backend
 from codegen.model.canonical import extract
@@ -188,6 +188,7 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         "reentrant": out.reentrant,
         "heap_free": out.heap_free,
         "problem": ctx["sizes"] | {"nparam": ctx["nparam"]},
+        "environment": versions.installed(),
         "files": {path: _sha256(data) for path, data in sorted(files.items())},
     }
     files["manifest.json"] = (json.dumps(manifest, indent=2, sort_keys=True) + "\n").encode()

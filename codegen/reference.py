@@ -87,6 +87,11 @@ class ReferenceSolver:
         self.solver = solver
         if solver_options is None:
             solver_options = CLARABEL_TIGHT if solver == "CLARABEL" else {}
+        if "warm_start" in solver_options:
+            # Every solve starts a new solver (see _solve_once): campaigns and
+            # replays rely on it (codegen.verify.envelope.FreshEachCase).
+            raise ValueError("the reference always solves with warm_start=False; "
+                             "remove warm_start from solver_options")
         self.solver_options = dict(solver_options)
         self.retry_options = CLARABEL_RETRIES if solver == "CLARABEL" else ()
         self._problems: dict = {}

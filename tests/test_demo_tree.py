@@ -2,6 +2,7 @@
 
 import json
 
+from codegen import versions
 from codegen.backends import DEFAULT_BACKEND
 from codegen.emit import generate, verify_tree
 from conftest import DEMO_VEHICLE, ROOT
@@ -21,6 +22,12 @@ def test_demo_tree_regenerates_byte_for_byte(tmp_path):
     generate(DEMO_VEHICLE, m["horizon"], out, backend=m["backend"], prefix=m["prefix"],
              precision=m["precision"])
     fresh = json.loads((out / "manifest.json").read_text())
+    # The tree follows the installed versions (CVXPY's canonicalisation above
+    # all): say which differ before comparing bytes (DEVELOPERS.md, "Pinned
+    # dependencies": after `make lock-upgrade`, regenerate and explain the diff).
+    assert versions.differences(m.get("environment"), fresh["environment"]) == [], \
+        "generated/demo was made under other versions than those installed: " \
+        "install the lock (make install) or regenerate it (make demo) and explain the diff"
     assert sorted(fresh["files"]) == sorted(m["files"])
     for rel in m["files"]:
         assert (out / rel).read_bytes() == (DEMO_TREE / rel).read_bytes(), rel

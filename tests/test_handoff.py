@@ -409,9 +409,16 @@ def test_record_states_the_figures(built):
     p = _Text()
     p.feed(html)
     text = " ".join(p.parts)
-    for title in ("Caution", "Identification", "Vehicle constants", "Horizon and settings",
-                  "Test vectors", "Envelope campaign", "Manifest"):
+    for title in ("Caution", "Identification", "Software versions", "Vehicle constants",
+                  "Horizon and settings", "Test vectors", "Envelope campaign", "Manifest"):
         assert f"## {title}" in md and title in text
+    # the versions that made the tree and this package (codegen.versions)
+    from codegen import versions
+    now = versions.installed()
+    for name, ver in now["packages"].items():
+        assert f"| {name} | {ver} | {ver} |" in md, name
+    assert f"| Python | {now['python']} | {now['python']} |" in md
+    assert r["environment"] == now and r["tree_environment"] == now
     for phrase in ("NOT flight-qualified", "independent verification and validation",
                    "software assurance", "licensed engineer"):
         assert phrase in md and phrase in text

@@ -20,7 +20,19 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
+    import json
+    import sys
+    from pathlib import Path
+
+    from codegen import versions
     from codegen.verify.check import check_tree, replay_line, results_json
+
+    try:
+        env = json.loads((Path(args.dir) / "manifest.json").read_text()).get("environment")
+    except (OSError, ValueError, AttributeError):
+        env = None      # check_tree says what is wrong with the tree
+    for line in versions.warning_lines(env, f"tree {args.dir}"):
+        print(f"pdgc check: {line}", file=sys.stderr)
 
     # Off a terminal: a line at every tenth of the cases, as before the bar.
     with Progress(max(args.cases, 0), "pdgc check", "cases",

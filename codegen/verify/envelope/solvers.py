@@ -94,14 +94,18 @@ def _load_generated(solver_dir, man):
 class FreshEachCase:
     """A reference solver that starts every case as a new instance would.
 
-    CVXPY keeps the Clarabel solver of a problem between solves and, with
+    CVXPY keeps the solver of a problem between solves and, with
     ``warm_start=True`` (its default), updates it in place; the answer of a
     case then depended on the cases the instance had solved before (seen: a
     few iterations and ~1e-3 relative fuel between a fresh and a used
     instance). A campaign must not depend on which worker ran what before,
     and its replay line (``pdgc solve``, a fresh process) must give the same
-    answer, so the cache is emptied before each case whatever options the
-    reference uses. The compiled problem is kept.
+    answer. The reference passes ``warm_start=False``, CVXPY's public switch,
+    on every solve (and refuses a ``warm_start`` option), so each solve builds
+    a new Clarabel or ECOS solver from the problem data; what the instance
+    keeps between cases is the compiled problem, whose data are a function of
+    the parameters alone. tests/test_envelope.py checks that a used instance
+    answers as a fresh one, byte for byte.
     """
 
     def __init__(self, solver, name: str | None = None):
@@ -111,10 +115,6 @@ class FreshEachCase:
         self.horizon = solver.horizon
 
     def solve(self, *args, **kwargs):
-        for dp in getattr(self._solver, "_problems", {}).values():
-            cache = getattr(dp.problem, "_solver_cache", None)
-            if cache is not None:
-                cache.clear()
         # Without the two-stage fallback: generated code has none, so a target
         # out of reach must read "infeasible" on both sides of the comparison.
         kwargs.setdefault("fallback", False)

@@ -6,7 +6,7 @@ import json
 import math
 from pathlib import Path
 
-from codegen import __version__
+from codegen import __version__, versions
 from codegen.errors import InputError
 from codegen.verify.handoff.checks import Checks, run_checks, run_solver_check
 from codegen.verify.handoff.package import _write_package, open_tree, package_files, read_campaign
@@ -61,6 +61,8 @@ def handoff(tree_dir, out_dir, campaign=None, checks: bool = True, progress=None
         "format": RECORD_FORMAT, "pdgc_version": __version__, "vehicle": vehicle.name,
         "horizon": manifest["horizon"], "precision": manifest["precision"],
         "prefix": manifest["prefix"], "vectors": len(vectors), "tolerances": tol,
+        "environment": versions.installed(),
+        "tree_environment": manifest.get("environment"),
         "checks_run": checks,
         "all_checks_passed": (ck.all_passed and (solver_check is None or
                                                  solver_check["failures"] == 0))
