@@ -15,7 +15,7 @@
 /** Backend state owned by the caller (inside pdg_workspace). */
 typedef struct {
     pdg_socp_work socp;
-    pdg_socp_settings settings;
+    pdg_socp_config settings;
     pdg_real params[414];
 } pdg_backend_work;
 
