@@ -26,6 +26,7 @@ import jinja2
 from codegen import __version__
 from codegen.model import tofsearch
 from codegen.backends import DEFAULT_BACKEND, get_backend
+from codegen.backends.native import ITERATIONS_HARD_LIMIT
 from codegen.model.canonical import extract
 from codegen.errors import InputError
 from codegen.fsutil import TEMPLATES_DIR, swap_in_directory
@@ -34,8 +35,9 @@ from codegen.model.vehicle import VEHICLE_KEYS, load_vehicle
 
 TEMPLATES = TEMPLATES_DIR
 DEFAULT_PREFIX = "pdg"
-DEFAULT_MAX_ITER = 100
-MAX_ITER_CAP = 200
+#: Default of {c}_guidance_config.iterations_per_solve_max; its largest value is the
+#: native solver core's compile-time ITERATIONS_HARD_LIMIT, for every backend.
+DEFAULT_ITERATIONS_PER_SOLVE = 100
 _C_KEYWORDS = {"auto", "break", "case", "char", "const", "continue", "default", "do", "double",
                "else", "enum", "extern", "float", "for", "goto", "if", "inline", "int", "long",
                "register", "restrict", "return", "short", "signed", "sizeof", "static", "struct",
@@ -113,7 +115,8 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         "retry_budget": tofsearch.RETRY_BUDGET, "retry_shift": tofsearch.RETRY_SHIFT,
         "tof_tolerance": tofsearch.TOLERANCE_S, "layout": dp.parameter_layout,
         "nparam": sum(size for _, _, size in dp.parameter_layout),
-        "default_max_iter": DEFAULT_MAX_ITER, "max_iter_cap": MAX_ITER_CAP,
+        "default_iterations_per_solve": DEFAULT_ITERATIONS_PER_SOLVE,
+        "iterations_per_solve_limit": ITERATIONS_HARD_LIMIT,
     }
 
     def render(name, context):
@@ -180,8 +183,8 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         "precision": precision,
         "vehicle": {"file": "vehicle.toml", "name": vehicle.name,
                     "sha256": vehicle.source_sha256},
-        "options": {"max_iterations_default": DEFAULT_MAX_ITER,
-                    "max_iterations_cap": MAX_ITER_CAP,
+        "options": {"iterations_per_solve_max_default": DEFAULT_ITERATIONS_PER_SOLVE,
+                    "iterations_per_solve_max_limit": ITERATIONS_HARD_LIMIT,
                     "tof_tolerance_s": tofsearch.TOLERANCE_S},
         "build": {"guidance_sources": guidance_sources, "solver_sources": out.solver_sources,
                   "include_dirs": include_dirs, "defines": out.defines,

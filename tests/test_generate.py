@@ -126,9 +126,9 @@ def test_bad_input_through_c_api_leaves_plan_untouched(ecos_solver, pos, vel, ma
 
 def test_bad_settings_refused(ecos_solver):
     ffi, lib = ecos_solver.ffi, ecos_solver.lib
-    settings = ffi.new("pdg_settings *")
-    lib.pdg_settings_default(settings)
-    settings.max_iterations = 0
+    settings = ffi.new("pdg_guidance_config *")
+    lib.pdg_guidance_config_init(settings)
+    settings.iterations_per_solve_max = 0
     inp = ffi.new("pdg_input *", {"position_m": DEMO_STATE[0], "velocity_mps": DEMO_STATE[1],
                                   "mass_kg": DEMO_STATE[2], "time_of_flight_s": 40.0})
     assert lib.pdg_plan_descent(ffi.new("pdg_workspace *"), inp, settings,

@@ -219,8 +219,8 @@ def _vector_rows(vectors) -> list:
             "velocity_mps": [_c(x) for x in v.velocity_mps],
             "mass_kg": _c(v.mass_kg), "time_of_flight_s": _c(v.time_of_flight_s),
             "target_m": [_c(x) for x in v.target_m],
-            "set_max_iterations": int(v.max_iterations is not None),
-            "max_iterations": int(v.max_iterations or 0),
+            "set_iterations_per_solve_max": int(v.iterations_per_solve_max is not None),
+            "iterations_per_solve_max": int(v.iterations_per_solve_max or 0),
             "set_tof_tolerance": int(v.tof_tolerance_s is not None),
             "tof_tolerance_s": _c(v.tof_tolerance_s or 0.0),
             "null_workspace": int(v.null_workspace), "status": v.status,
@@ -686,9 +686,9 @@ def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, camp
         _table(("key", "value", "meaning"), vrows)]})
 
     opts = manifest.get("options", {})
-    srows = [("max_iterations (default / cap)",
-              f"{opts.get('max_iterations_default')} / {opts.get('max_iterations_cap')}",
-              f"`{prefix}_settings.max_iterations`, per solve"),
+    srows = [("iterations_per_solve_max (default / cap)",
+              f"{opts.get('iterations_per_solve_max_default')} / {opts.get('iterations_per_solve_max_limit')}",
+              f"`{prefix}_guidance_config.iterations_per_solve_max`, per solve"),
              ("tof_tolerance_s (default)", opts.get("tof_tolerance_s"),
               "time-of-flight search stops when its bracket is shorter"),
              ("time-of-flight search",

@@ -37,7 +37,7 @@ class NativeBackend:
             files={f"solver/{name}": text.encode() for name, text in files.items()},
             adapter_c=adapter,
             backend_header=f"{prefix}_socp.h",
-            backend_fields=[f"{prefix}_socp_work socp;", f"{prefix}_socp_config settings;",
+            backend_fields=[f"{prefix}_socp_work socp;", f"{prefix}_socp_config config;",
                             f"{prefix}_real params[{prog.n_params}];"],
             solver_sources=[f"solver/{name}" for name in sorted(files) if name.endswith(".c")],
             include_dirs=["solver"], defines=[], solver_strict=True, reentrant=True,

@@ -20,10 +20,10 @@ int main(void)
         0.0, /* search the time of flight */
         { 0.0, 0.0, 0.0 }
     };
-    pdg_settings settings;
+    pdg_guidance_config settings;
     pdg_status status;
     int k;
-    pdg_settings_default(&settings);
+    pdg_guidance_config_init(&settings);
     status = pdg_plan_descent(&work, &input, &settings, &plan);
     printf("status %s\n", pdg_status_name(status));
     if (status != PDG_OPTIMAL) {

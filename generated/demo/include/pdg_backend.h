@@ -15,18 +15,18 @@
 /** Backend state owned by the caller (inside pdg_workspace). */
 typedef struct {
     pdg_socp_work socp;
-    pdg_socp_config settings;
+    pdg_socp_config config;
     pdg_real params[414];
 } pdg_backend_work;
 
 /**
- * Solve for the parameters `params`, with at most `max_iterations`
+ * Solve for the parameters `params`, with at most `iteration_cap`
  * iterations. Writes the objective and the iteration count; returns a
  * pdg_status value (0 optimal, 1 infeasible, 2 iteration limit,
  * 3 numerical trouble) mapped from the solver's own codes.
  */
 int pdg_backend_solve(pdg_backend_work *bw, const double *params,
-                             int max_iterations, double *objective, int *iterations);
+                             int iteration_cap, double *objective, int *iterations);
 
 /** Copy the scaled solution of the last solve (column-major, as in the problem). */
 void pdg_backend_solution(const pdg_backend_work *bw, double *r, double *v,

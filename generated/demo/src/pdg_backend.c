@@ -27,16 +27,16 @@ static int map_status(int code)
 }
 
 int pdg_backend_solve(pdg_backend_work *bw, const double *params,
-                             int max_iterations, double *objective, int *iterations)
+                             int iteration_cap, double *objective, int *iterations)
 {
     int i;
     int code;
     for (i = 0; i < PDG_NPARAM; i++) {
         bw->params[i] = (pdg_real)params[i];
     }
-    pdg_socp_config_init(&bw->settings);
-    bw->settings.iteration_cap = max_iterations;
-    code = pdg_socp_solve(&bw->socp, bw->params, &bw->settings);
+    pdg_socp_config_init(&bw->config);
+    bw->config.iteration_cap = iteration_cap;
+    code = pdg_socp_solve(&bw->socp, bw->params, &bw->config);
     *iterations = bw->socp.iterations;
     if (code == PDG_SOCP_BREAKDOWN && bw->socp.breakdown_cause != PDG_SOCP_CAUSE_NO_PROGRESS) {
         /* One retry with ten times the static shift (kkt_shift): near the
@@ -45,8 +45,8 @@ int pdg_backend_solve(pdg_backend_work *bw, const double *params,
          * different shift path then converges. Bounded: two solves at most.
          * Not after the progress guard (a problem at the edge of
          * feasibility, where the retry drifted just the same). */
-        bw->settings.kkt_shift = bw->settings.kkt_shift * (pdg_real)10;
-        code = pdg_socp_solve(&bw->socp, bw->params, &bw->settings);
+        bw->config.kkt_shift = bw->config.kkt_shift * (pdg_real)10;
+        code = pdg_socp_solve(&bw->socp, bw->params, &bw->config);
         *iterations += bw->socp.iterations;
     }
     *objective = (double)bw->socp.objective;
