@@ -89,7 +89,7 @@ def build_module(tree_dir, quiet: bool = True):
 def _compile(tree_dir: Path, manifest: dict, name: str, cache: Path, quiet: bool) -> None:
     import cffi
 
-    prefix = manifest["prefix"]
+    prefix = manifest["c_name"]
     b = manifest["build"]
     ffi = cffi.FFI()
     ffi.cdef(cdef_text(prefix, manifest["horizon"]))
@@ -136,7 +136,7 @@ class GeneratedSolver:
         else:
             self._mod, self.manifest = module, verify_tree(self.tree_dir)
         self.ffi, self.lib = self._mod.ffi, self._mod.lib
-        self.prefix = self.manifest["prefix"]
+        self.prefix = self.manifest["c_name"]
         self.horizon = int(self.manifest["horizon"])
         self.backend = self.manifest["backend"]
         self.name = f"generated:{self.backend}"

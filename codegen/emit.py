@@ -1,7 +1,8 @@
 """Render a self-contained C tree for one vehicle, horizon and backend.
 
 The tree (see templates/README.md.j2) holds the backend's solver sources, the
-guidance layer rendered from templates/, build files, an example program, a
+guidance layer rendered from templates/, build files, a program that plans once
+(app/), a
 README for this vehicle, a copy of the vehicle file and manifest.json with
 the hash of every file. Output is deterministic: the same inputs give the
 same bytes (no timestamps, no absolute paths), and the tree is written
@@ -34,7 +35,8 @@ from codegen.model.problem import MASS_FLOOR_FRACTION, DescentProblem
 from codegen.model.vehicle import VEHICLE_KEYS, load_vehicle
 
 TEMPLATES = TEMPLATES_DIR
-DEFAULT_PREFIX = "pdg"
+#: Default of --c-name, the prefix of every C identifier and file name of a tree.
+DEFAULT_C_NAME = "pdg"
 #: Default of {c}_guidance_config.iterations_per_solve_max; its largest value is the
 #: native solver core's compile-time ITERATIONS_HARD_LIMIT, for every backend.
 DEFAULT_ITERATIONS_PER_SOLVE = 100
@@ -58,16 +60,16 @@ def c_literal(x) -> str:
     return r
 
 
-def check_prefix(prefix: str) -> str:
-    if not isinstance(prefix, str) or not re.fullmatch(r"[a-z][a-z0-9_]{0,15}", prefix):
-        raise InputError("--prefix", prefix,
+def check_c_name(c_name: str) -> str:
+    if not isinstance(c_name, str) or not re.fullmatch(r"[a-z][a-z0-9_]{0,15}", c_name):
+        raise InputError("--c-name", c_name,
                          "must be a lower-case C identifier: a letter, then up to 15 "
                          "lower-case letters, digits or _")
-    if prefix in _C_KEYWORDS or keyword.iskeyword(prefix):
-        raise InputError("--prefix", prefix, "must not be a C keyword")
-    if prefix.lower().startswith("cpg"):
-        raise InputError("--prefix", prefix, "must not start with 'cpg' (used by cvxpygen's code)")
-    return prefix
+    if c_name in _C_KEYWORDS or keyword.iskeyword(c_name):
+        raise InputError("--c-name", c_name, "must not be a C keyword")
+    if c_name.lower().startswith("cpg"):
+        raise InputError("--c-name", c_name, "must not start with 'cpg' (used by cvxpygen's code)")
+    return c_name
 
 
 def environment() -> jinja2.Environment:
@@ -83,10 +85,11 @@ def _sha256(data: bytes) -> str:
 
 
 def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND,
-             prefix: str = DEFAULT_PREFIX, precision: str = "double", progress=None) -> dict:
-    """Generate the tree; returns the manifest (as a dict)."""
+             c_name: str = DEFAULT_C_NAME, precision: str = "double", progress=None) -> dict:
+    """Generate the tree; returns the manifest (as a dict). ``c_name`` prefixes
+    every C identifier and file name of the tree (``--c-name``)."""
     say = progress or (lambda msg: None)
-    check_prefix(prefix)
+    prefix = check_c_name(c_name)
     if precision not in ("double", "single"):
         raise InputError("--precision", precision, "must be 'double' or 'single'")
     if not isinstance(horizon, int) or horizon < 2 or horizon > 1000:
@@ -168,7 +171,7 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
     files[f"include/{prefix}_backend.h"] = render("backend.h.j2", ctx).encode()
     files[f"src/{prefix}_guidance.c"] = render("guidance.c.j2", ctx).encode()
     files[f"src/{prefix}_backend.c"] = out.adapter_c.encode()
-    files[f"example/{prefix}_example.c"] = render("example.c.j2", ctx).encode()
+    files[f"app/{prefix}_plan_once.c"] = render("plan_once.c.j2", ctx).encode()
     files["Makefile"] = render("Makefile.j2", build_ctx).encode()
     files["CMakeLists.txt"] = render("CMakeLists.txt.j2", build_ctx).encode()
     files["README.md"] = render("README.md.j2", ctx).encode()
@@ -179,7 +182,7 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         "version": __version__,
         "backend": backend,
         "horizon": n,
-        "prefix": prefix,
+        "c_name": prefix,
         "precision": precision,
         "vehicle": {"file": "vehicle.toml", "name": vehicle.name,
                     "sha256": vehicle.source_sha256},

@@ -61,9 +61,9 @@ def rel_err(ours: float, ref: float) -> float:
 def build(prog, tmp_path_factory, name, **kw) -> NativeSolver:
     files = render(prog, **kw)
     out = tmp_path_factory.mktemp(name)
-    lib = compile_shared(files, out, prefix=kw.get("prefix", "pdg"))
-    return NativeSolver(lib, out / f"{kw.get('prefix', 'pdg')}_socp.h",
-                        prefix=kw.get("prefix", "pdg"))
+    c_name = kw.get("c_name", "pdg")
+    lib = compile_shared(files, out, c_name=c_name)
+    return NativeSolver(lib, out / f"{c_name}_socp.h", c_name=c_name)
 
 
 def in_cone(v: np.ndarray, nonneg: int, soc, tol: float) -> bool:
@@ -461,7 +461,7 @@ def test_render_is_deterministic_and_literals_round_trip(demo_vehicle):
     a, b = render(prog), render(prog)
     assert a == b and sorted(a) == ["pdg_socp.c", "pdg_socp.h"]
     assert "typedef double pdg_real;" in a["pdg_socp.h"]
-    single = render(prog, prefix="lander", precision="single")
+    single = render(prog, c_name="lander", precision="single")
     assert sorted(single) == ["lander_socp.c", "lander_socp.h"]
     assert "typedef float lander_real;" in single["lander_socp.h"]
     for v in (0.1, 1.0 / 3.0, -2.5e-300, 123456789.125, 1e22):
@@ -492,8 +492,8 @@ def test_bad_arguments_are_refused(demo_vehicle):
     prog = extract(dp)
     with pytest.raises(InputError, match="precision"):
         render(prog, precision="half")
-    with pytest.raises(InputError, match="prefix"):
-        render(prog, prefix="9lives")
+    with pytest.raises(InputError, match="c_name"):
+        render(prog, c_name="9lives")
     with pytest.raises(InputError, match="settings.residual_stop"):
         render(prog, settings={"residual_stop": -1})
     with pytest.raises(InputError, match="settings.iteration_cap"):

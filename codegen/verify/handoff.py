@@ -2,7 +2,7 @@
 
 From a generated NATIVE tree (the backend meant to fly: heap-free, reentrant,
 C99) this writes a directory and a ``.tar.gz`` of it holding the generated
-sources, build files (make, CMake), the example, test vectors with a C runner
+sources, build files (make, CMake), the plan-once program, test vectors with a C runner
 (:mod:`codegen.verify.vectors`), and a verification record (Markdown and HTML). The
 target checks run here, on a scratch copy of the package, with the package's
 own Makefile where one exists:
@@ -205,9 +205,9 @@ def _objects(manifest: dict, prefix: str, failing: set) -> tuple:
         return Obj(src, Path(src).stem + ".o", flags, cm)
 
     lib = [mk(s) for s in b["guidance_sources"] + b["solver_sources"]]
-    example = mk(f"example/{prefix}_example.c")
+    program = mk(f"app/{prefix}_plan_once.c")
     runner = [mk(f"test/{prefix}_test_runner.c"), mk(f"test/{prefix}_vectors.c")]
-    return lib, example, runner
+    return lib, program, runner
 
 
 def _vector_rows(vectors) -> list:
@@ -236,9 +236,9 @@ def _vector_rows(vectors) -> list:
 def package_files(tree_dir, manifest, vehicle, vectors, tol, failing=frozenset()) -> dict:
     """Every file of the package but the record and MANIFEST.sha256: path -> bytes."""
     tree_dir = Path(tree_dir)
-    prefix, n = manifest["prefix"], manifest["horizon"]
+    prefix, n = manifest["c_name"], manifest["horizon"]
     env = environment()
-    lib, example, runner = _objects(manifest, prefix, set(failing))
+    lib, program, runner = _objects(manifest, prefix, set(failing))
     headers = sorted(p for p in manifest["files"] if p.endswith(".h"))
     headers += [f"test/{prefix}_vectors.h"]
     ctx = {"prefix": prefix, "PREFIX": prefix.upper(), "N": n, "version": __version__,
@@ -247,10 +247,10 @@ def package_files(tree_dir, manifest, vehicle, vectors, tol, failing=frozenset()
            "strict_flags": STRICT_FLAGS, "relaxed_flags": RELAXED_FLAGS,
            "relaxed_used": bool(failing), "include_dirs": manifest["build"]["include_dirs"] + ["test"],
            "defines": manifest["build"]["defines"], "headers": headers,
-           "lib_objects": lib, "example": example, "example_object": example.obj,
+           "lib_objects": lib, "program": program, "program_object": program.obj,
            "runner_objects": runner, "m7_dp_flags": M7_DP_FLAGS,
            "cppcheck_flags": CPPCHECK_FLAGS,
-           "cppcheck_paths": ["src", "solver", "example", "test"]}
+           "cppcheck_paths": ["src", "solver", "app", "test"]}
 
     def render(name):
         return env.get_template(f"handoff/{name}").render(**ctx).encode()
@@ -399,7 +399,7 @@ def _probe_sizes(work: Path, prefix: str, cc: str, flags: str, include_dirs, nm:
 
 def _m7_build(work: Path, manifest: dict, flags: str, label: str) -> dict:
     """Library for the Cortex-M7 (strict flags as errors), sizes and stack."""
-    prefix = manifest["prefix"]
+    prefix = manifest["c_name"]
     b = manifest["build"]
     incs = [f"-I{d}" for d in b["include_dirs"]]
     out_dir = work / f"m7-{label}"
@@ -450,7 +450,7 @@ def _m7_build(work: Path, manifest: dict, flags: str, label: str) -> dict:
 def run_checks(pkg_files: dict, manifest: dict, tree_dir, vector_count: int, say) -> Checks:
     """All target checks, in a scratch copy of the package (removed afterwards)."""
     ck = Checks()
-    prefix = manifest["prefix"]
+    prefix = manifest["c_name"]
     tools = {t: _tool_version(t) for t in ("cc", "arm-none-eabi-gcc", "arm-linux-gnueabihf-gcc",
                                            "qemu-arm", "cppcheck", "gcov", "cmake")}
     ck.tools = tools
@@ -477,7 +477,7 @@ def run_checks(pkg_files: dict, manifest: dict, tree_dir, vector_count: int, say
         if have["cppcheck"]:
             code, out = _run(["cppcheck", *CPPCHECK_FLAGS.split(),
                               "--template={file}:{line}:{column}: {severity}: {message} [{id}]",
-                              *incs, "src", "solver", "example", "test"], cwd=work)
+                              *incs, "src", "solver", "app", "test"], cwd=work)
             findings = [ln.strip() for ln in out.splitlines() if re.match(r"^\S+:\d+:\d+: ", ln)]
             ck.cppcheck = {"findings": [_scrub(f, work) for f in findings], "exit_code": code}
         else:
@@ -530,11 +530,11 @@ def run_checks(pkg_files: dict, manifest: dict, tree_dir, vector_count: int, say
                 from codegen.emit import generate
                 single_dir = scratch / "single"
                 generate(Path(tree_dir) / "vehicle.toml", manifest["horizon"], single_dir,
-                         backend="native", prefix=prefix, precision="single")
+                         backend="native", c_name=prefix, precision="single")
                 sman = read_manifest(single_dir)
                 ck.m7["single"] = _m7_build(single_dir, sman, M7_SP_FLAGS, "sp")
                 ck.m7["single"]["tree"] = (f"pdgc {__version__} generate vehicle.toml --horizon "
-                                           f"{manifest['horizon']} --backend native --prefix "
+                                           f"{manifest['horizon']} --backend native --c-name "
                                            f"{prefix} --precision single")
             else:
                 ck.m7["single"] = _m7_build(work, manifest, M7_SP_FLAGS, "sp")
@@ -660,14 +660,14 @@ def _yes(ok):
 
 def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, campaign,
                     files: dict, solver_check: dict | None = None) -> list:
-    prefix, n = manifest["prefix"], manifest["horizon"]
+    prefix, n = manifest["c_name"], manifest["horizon"]
     sec = []
 
     sec.append({"title": "Caution", "blocks": [_text(f"**{CAUTION}**")]})
 
     ident = [("vehicle", vehicle.name), ("vehicle file sha256", manifest["vehicle"]["sha256"]),
              ("horizon N (intervals)", n), ("precision", manifest["precision"]),
-             ("backend", "native (pdgc interior-point SOCP solver)"), ("C prefix", prefix),
+             ("backend", "native (pdgc interior-point SOCP solver)"), ("C name", prefix),
              ("reentrant", manifest.get("reentrant")), ("heap-free", manifest.get("heap_free")),
              ("generator", f"pdgc {manifest.get('version')}"),
              ("problem size", ", ".join(f"{k} {v}" for k, v in sorted(manifest["problem"].items()))),
@@ -838,7 +838,7 @@ def _check_sections(ck: Checks, prefix: str) -> list:
     sec.append({"title": "Strict build", "blocks": blocks})
 
     if ck.cppcheck is not None:
-        b = [_text(f"`cppcheck {CPPCHECK_FLAGS}` over src, solver, example and test: "
+        b = [_text(f"`cppcheck {CPPCHECK_FLAGS}` over src, solver, app and test: "
                    f"{len(ck.cppcheck['findings'])} findings.")]
         if ck.cppcheck["findings"]:
             b.append(_code("\n".join(ck.cppcheck["findings"])))
@@ -1087,7 +1087,7 @@ def handoff(tree_dir, out_dir, campaign=None, checks: bool = True, progress=None
         failing = {f for f, ok, _ in ck.strict if not ok}
         if failing:
             files = package_files(tree_dir, manifest, vehicle, vectors, tol, failing)
-    title = f"Verification record: {manifest['prefix']} guidance for {vehicle.name}, N = {manifest['horizon']}"
+    title = f"Verification record: {manifest['c_name']} guidance for {vehicle.name}, N = {manifest['horizon']}"
     intro = [f"Hand-off package written by pdgc {__version__} from a generated native tree. "
              "Every figure below was produced by the checks named with it; nothing here "
              "needs Python to read or to reproduce (see README.md for the make targets). "
@@ -1098,7 +1098,7 @@ def handoff(tree_dir, out_dir, campaign=None, checks: bool = True, progress=None
     result = {
         "format": RECORD_FORMAT, "pdgc_version": __version__, "vehicle": vehicle.name,
         "horizon": manifest["horizon"], "precision": manifest["precision"],
-        "prefix": manifest["prefix"], "vectors": len(vectors), "tolerances": tol,
+        "prefix": manifest["c_name"], "vectors": len(vectors), "tolerances": tol,
         "checks_run": checks,
         "all_checks_passed": (ck.all_passed and (solver_check is None or
                                                  solver_check["failures"] == 0))

@@ -12,7 +12,7 @@ ordering, one interior stage's factorisation and sweeps are also emitted as
 straight-line code (:mod:`codegen.backends.native.kernel`), called once per stage:
 a constant amount of code, independent of the horizon.
 
-The C API (PREFIX = prefix.upper()) is described in the generated header:
+The C API (prefix = ``c_name``, PREFIX = its upper case) is described in the generated header:
 ``{prefix}_socp_config_init``, ``{prefix}_socp_solve``, the workspace
 struct ``{prefix}_socp_work`` (``x``, ``y``, ``z``, ``s``, ``objective``,
 ``iterations``, ``status``, ...) and ``enum {prefix}_socp_status``.
@@ -149,12 +149,12 @@ _CORRECTION_MU_FACTOR = {"double": 1e-2, "single": 1e-6}
 #: single: 1e-4 -> at most 1e-1 in tenfold steps, which the sweeps preferred).
 _SHIFT_RAISE = {"double": (100.0, 1e4), "single": (10.0, 1e3)}
 
-_PREFIX_RE = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
+_C_NAME_RE = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
 
 
-def _check_args(prefix: str, precision: str, settings):
-    if not isinstance(prefix, str) or not _PREFIX_RE.match(prefix):
-        raise InputError("prefix", prefix, "must be a lower-case C identifier of at most 31 "
+def _check_args(c_name: str, precision: str, settings):
+    if not isinstance(c_name, str) or not _C_NAME_RE.match(c_name):
+        raise InputError("c_name", c_name, "must be a lower-case C identifier of at most 31 "
                          "characters (letters, digits, _; starting with a letter)")
     if precision not in DEFAULTS:
         raise InputError("precision", precision, "must be 'double' or 'single'")
@@ -302,9 +302,10 @@ def _symbolic(prog: ConeProgram, ordering: str) -> KKTSymbolic:
     return sym
 
 
-def _context(prog, prefix, precision, settings, ordering, stage_kernel=True):
+def _context(prog, c_name, precision, settings, ordering, stage_kernel=True):
     _check_program(prog)
-    defaults = _check_args(prefix, precision, settings)
+    defaults = _check_args(c_name, precision, settings)
+    prefix = c_name
     if ordering is None:
         ordering = DEFAULT_ORDERING[precision]
     if ordering not in ("auto", "periodic", "staged", "minfill", "mindegree", "rcm", "natural"):
@@ -404,7 +405,7 @@ def _env() -> jinja2.Environment:
     return env
 
 
-def render(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
+def render(prog: ConeProgram, c_name: str = "pdg", precision: str = "double",
            settings: dict | None = None, ordering: str | None = None,
            stage_kernel: bool = True) -> dict:
     """C source of the solver for ``prog``: {filename: text}.
@@ -422,7 +423,8 @@ def render(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
     even when a periodic range exists (for comparison).
     Deterministic: the same input gives the same bytes.
     """
-    ctx, _, _ = _context(prog, prefix, precision, settings, ordering, stage_kernel)
+    ctx, _, _ = _context(prog, c_name, precision, settings, ordering, stage_kernel)
+    prefix = c_name
     env = _env()
     return {f"{prefix}_socp.h": env.get_template("socp.h.j2").render(**ctx),
             f"{prefix}_socp.c": env.get_template("socp.c.j2").render(**ctx)}
@@ -438,10 +440,10 @@ def _kernel_info(kern):
             "backward_stages": [b["first"], b["first"] + b["count"]]}
 
 
-def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
+def describe(prog: ConeProgram, c_name: str = "pdg", precision: str = "double",
              settings: dict | None = None, ordering: str | None = None) -> dict:
     """Sizes and defaults of the solver ``render`` would generate."""
-    ctx, sym, defaults = _context(prog, prefix, precision, settings, ordering)
+    ctx, sym, defaults = _context(prog, c_name, precision, settings, ordering)
     rb = 4 if precision == "single" else 8
     a = ctx["alloc"]
     dim, n, p, m = sym.dim, prog.n, a["p"], a["m"]
@@ -458,7 +460,7 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
              + 5)                                    # objective, primal_residual .. mu
     ints = 10                                       # counters
     return {
-        "precision": precision, "prefix": prefix,
+        "precision": precision, "c_name": c_name,
         "n_params": prog.n_params, "n": prog.n, "p": prog.p, "m": prog.m,
         "nonneg": prog.nonneg, "soc": len(prog.soc),
         "soc_sizes": sorted(set(int(q) for q in prog.soc)),

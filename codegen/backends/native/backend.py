@@ -18,8 +18,8 @@ class NativeBackend:
     def generate(self, dp, ctx: dict, render) -> BackendOutput:
         prog = ctx["prog"]
         prefix, precision = ctx["prefix"], ctx["precision"]
-        files = native.render(prog, prefix=prefix, precision=precision)
-        info = native.describe(prog, prefix=prefix, precision=precision)
+        files = native.render(prog, c_name=prefix, precision=precision)
+        info = native.describe(prog, c_name=prefix, precision=precision)
         offsets = {name: off for name, (off, _shape) in prog.variables.items()}
         adapter = render("backend_native.c.j2", dict(ctx, offsets=offsets, nvar=prog.n))
         settings = info["settings"]

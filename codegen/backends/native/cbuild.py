@@ -25,9 +25,10 @@ def write_sources(files: dict, outdir) -> Path:
     return outdir
 
 
-def compile_shared(files: dict, outdir, prefix: str = "pdg", opt: str = "-O2",
+def compile_shared(files: dict, outdir, c_name: str = "pdg", opt: str = "-O2",
                    extra_flags=()) -> Path:
-    """gcc the solver into ``outdir/lib{prefix}_socp.so``; returns its path."""
+    """gcc the solver into ``outdir/lib{c_name}_socp.so``; returns its path."""
+    prefix = c_name
     outdir = write_sources(files, outdir)
     lib = outdir / f"lib{prefix}_socp.so"
     cmd = ["gcc", opt, *STRICT_FLAGS, "-fPIC", "-shared", *extra_flags,
@@ -39,7 +40,8 @@ def compile_shared(files: dict, outdir, prefix: str = "pdg", opt: str = "-O2",
 class NativeSolver:
     """Loads a compiled solver; ``solve(params)`` returns a dict of results."""
 
-    def __init__(self, lib_path, header_path, prefix: str = "pdg"):
+    def __init__(self, lib_path, header_path, c_name: str = "pdg"):
+        prefix = c_name
         pre = subprocess.run(["gcc", "-E", "-P", str(header_path)], check=True,
                              capture_output=True, text=True).stdout
         self.ffi = cffi.FFI()
