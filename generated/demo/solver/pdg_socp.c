@@ -2737,7 +2737,7 @@ static void backward_cols2(const pdg_socp_work *w, real *t, real *t2, real *x1,
 
 
 /* ---- stage kernel ------------------------------------------------------------ */
-/* The ordering is stage-periodic (codegen/native/periodic.py): the rows of
+/* The ordering is stage-periodic (codegen/backends/native/periodic.py): the rows of
  * stages 2..49 of the factorisation (and columns of stages
  * 1..48 of the backward sweep) repeat the pattern of L of the one
  * before, shifted by SK_P rows, SK_LQ positions of l_val and SK_QR of the KKT

@@ -7,8 +7,8 @@
  * flight when asked (grid, then golden section), calls the solver, and
  * converts the answer back to SI units with an honest status.
  *
- * This file mirrors codegen/problem.py (parameter_values) and
- * codegen/tofsearch.py (search) of pdgc 0.1.0 line for line; the two
+ * This file mirrors codegen/model/problem.py (parameter_values) and
+ * codegen/model/tofsearch.py (search) of pdgc 0.1.0 line for line; the two
  * are checked against each other by `pdgc check`.
  * Generated; do not edit. NOT FLIGHT-QUALIFIED: see README.md.
  */
@@ -26,7 +26,7 @@ static const double MASS_UNIT_KG = 1900.0;
 static const double SPEED_UNIT_MPS = 121.50373613488946;
 static const double ACCEL_UNIT_MPS2 = 7.381578947368421;
 
-/* Vehicle constants, scaled (see codegen/problem.py, Constants). */
+/* Vehicle constants, scaled (see codegen/model/problem.py, Constants). */
 static const double THRUST_LOWER = 0.29411764705882354;
 static const double THRUST_UPPER = 1.0;
 static const double MASS_FLOW = 0.05386927377136476;
@@ -40,7 +40,7 @@ static const double THRUST_LOWER_N = 4125.0;
 static const double THRUST_UPPER_N = 14025.0;
 static const double MASS_FLOW_PER_N = 0.00044335487520779493;
 
-/* Time-of-flight search (codegen/tofsearch.py). */
+/* Time-of-flight search (codegen/model/tofsearch.py). */
 #define GRID_POINTS 9
 #define GRID_REFINEMENTS 3
 #define GRID_MAX 65
