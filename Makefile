@@ -59,7 +59,7 @@ demo: $(STAMP)
 	@echo "demo plot: $(DEMO_OUT)/demo_plan.png"
 	$(PDGC) generate $(DEMO_VEHICLE) --horizon $(DEMO_HORIZON) --out $(DEMO_TREE)
 	$(MAKE) -C $(DEMO_TREE)
-	./$(DEMO_TREE)/build/pdg_example
+	./$(DEMO_TREE)/build/pdg_plan_once
 	$(PDGC) check $(DEMO_TREE) --cases 50 --json $(DEMO_OUT)/check.json
 	rm -rf $(DEMO_OUT)/envelope && $(PDGC) envelope $(DEMO_TREE) --dispersions examples/demo_dispersions.toml --cases 100 --workers 2 --reference-every 20 --no-progress --out $(DEMO_OUT)/envelope
 	@echo "envelope report: $(DEMO_OUT)/envelope/report.html"

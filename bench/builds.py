@@ -40,7 +40,7 @@ class Build:
 
     @property
     def prefix(self) -> str:
-        return self.manifest["prefix"]
+        return self.manifest["c_name"]
 
     @property
     def source_bytes(self) -> int:
@@ -78,7 +78,7 @@ def build(cfg: Config, backend: str, horizon: int) -> Build:
     say(f"generating {backend} N={horizon}")
     manifest = generate(cfg.vehicle_path, horizon, tree, backend=backend)
     gen_s = float(manifest["generation_seconds"])
-    prefix = manifest["prefix"]
+    prefix = manifest["c_name"]
     lib = f"build/lib{prefix}_guidance.a"
     shutil.rmtree(tree / "build", ignore_errors=True)
     say(f"compiling {backend} N={horizon} (generated in {gen_s:.1f} s)")
@@ -118,7 +118,7 @@ def render_harness(prefix: str) -> str:
 
 
 def build_harness(tree: Path, manifest: dict, archive: Path, out_dir: Path) -> Path:
-    prefix = manifest["prefix"]
+    prefix = manifest["c_name"]
     out_dir.mkdir(parents=True, exist_ok=True)
     src = out_dir / f"{prefix}_bench_harness.c"
     write_atomic(src, render_harness(prefix))

@@ -47,7 +47,7 @@ typedef struct {{
     double position_m[3]; double velocity_mps[3]; double mass_kg;
     double time_of_flight_s; double target_m[3];
 }} {prefix}_input;
-typedef struct {{ int max_iterations; double tof_tolerance_s; }} {prefix}_settings;
+typedef struct {{ int iterations_per_solve_max; double tof_tolerance_s; }} {prefix}_guidance_config;
 typedef struct {{
     {prefix}_status status;
     double time_of_flight_s; double fuel_kg; double landing_miss_m; double objective;
@@ -57,9 +57,9 @@ typedef struct {{
     double accel_slack_mps2[{n}];
 }} {prefix}_plan;
 typedef struct {{ ...; }} {prefix}_workspace;
-void {prefix}_settings_default({prefix}_settings *settings);
+void {prefix}_guidance_config_init({prefix}_guidance_config *settings);
 {prefix}_status {prefix}_plan_descent({prefix}_workspace *work, const {prefix}_input *input,
-    const {prefix}_settings *settings, {prefix}_plan *plan);
+    const {prefix}_guidance_config *settings, {prefix}_plan *plan);
 const char *{prefix}_status_name({prefix}_status status);
 """
 
@@ -89,7 +89,7 @@ def build_module(tree_dir, quiet: bool = True):
 def _compile(tree_dir: Path, manifest: dict, name: str, cache: Path, quiet: bool) -> None:
     import cffi
 
-    prefix = manifest["prefix"]
+    prefix = manifest["c_name"]
     b = manifest["build"]
     ffi = cffi.FFI()
     ffi.cdef(cdef_text(prefix, manifest["horizon"]))
@@ -136,7 +136,7 @@ class GeneratedSolver:
         else:
             self._mod, self.manifest = module, verify_tree(self.tree_dir)
         self.ffi, self.lib = self._mod.ffi, self._mod.lib
-        self.prefix = self.manifest["prefix"]
+        self.prefix = self.manifest["c_name"]
         self.horizon = int(self.manifest["horizon"])
         self.backend = self.manifest["backend"]
         self.name = f"generated:{self.backend}"
@@ -146,13 +146,13 @@ class GeneratedSolver:
         self._work = self.ffi.new(f"{p}_workspace *")
         self._plan = self.ffi.new(f"{p}_plan *")
         self._input = self.ffi.new(f"{p}_input *")
-        self._settings = self.ffi.new(f"{p}_settings *")
-        getattr(self.lib, f"{p}_settings_default")(self._settings)
-        self.default_max_iterations = int(self._settings.max_iterations)
+        self._settings = self.ffi.new(f"{p}_guidance_config *")
+        getattr(self.lib, f"{p}_guidance_config_init")(self._settings)
+        self.default_iterations_per_solve_max = int(self._settings.iterations_per_solve_max)
 
-    def settings(self, max_iterations=None, tof_tolerance_s=None) -> None:
-        if max_iterations is not None:
-            self._settings.max_iterations = int(max_iterations)
+    def settings(self, iterations_per_solve_max=None, tof_tolerance_s=None) -> None:
+        if iterations_per_solve_max is not None:
+            self._settings.iterations_per_solve_max = int(iterations_per_solve_max)
         if tof_tolerance_s is not None:
             self._settings.tof_tolerance_s = float(tof_tolerance_s)
 

@@ -17,13 +17,11 @@ import numpy as np
 
 from codegen.model import tofsearch
 from codegen.errors import InputError
+from codegen.model.canonical import CLARABEL_TIGHT
 from codegen.model.problem import DescentProblem, time_of_flight_bracket
 from codegen.model.trajectory import (BAD_INPUT, INFEASIBLE, ITERATION_LIMIT, LEAST_MISS, NUMERICAL_TROUBLE, OPTIMAL, Trajectory)
 from codegen.model.vehicle import Vehicle
 
-#: Clarabel settings for the reference: tighter than its defaults (1e-8).
-CLARABEL_TIGHT = {"tol_gap_abs": 1e-9, "tol_gap_rel": 1e-9, "tol_feas": 1e-9,
-                  "tol_infeas_abs": 1e-9, "tol_infeas_rel": 1e-9, "max_iter": 200}
 
 #: When the tight tolerances stall, the reference retries at Clarabel's
 #: defaults (1e-8), then at 1e-7: the worst accuracy of a reference answer.

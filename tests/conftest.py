@@ -23,11 +23,17 @@ def demo_vehicle():
 
 
 def paper_example_vehicle():
-    """The Mars example of Acikmese & Ploen 2007 / Blackmore et al. 2010, as
-    reproduced in secondary sources (see CHECKS.md of the design notes): six
-    3100 N engines canted 27 deg, throttle 0.3-0.8, Isp 225 s, 1905/1505 kg,
-    glide slope 4 deg, no pointing limit. The speed limit is not part of the
-    example; it is set high enough never to bind."""
+    """The Mars example of Açıkmeşe & Ploen 2007 ("Convex programming approach
+    to powered descent guidance for Mars landing", J. Guidance, Control, and
+    Dynamics 30(5)) and Blackmore, Açıkmeşe & Scharf 2010 ("Minimum-landing-
+    error powered-descent guidance for Mars landing using convex
+    optimization", J. Guidance, Control, and Dynamics 33(4)): six 3100 N
+    engines canted 27 deg, throttle 0.3-0.8, Isp 225 s, 1905/1505 kg, glide
+    slope 4 deg, no pointing limit, Mars gravity 3.7114 m/s^2, from
+    (2000, 0, 1500) m at (100, 0, -75) m/s. Recalled and approximate: these
+    are the values as widely reproduced, not read from the papers' tables.
+    The speed limit is not part of the example; it is set high enough never
+    to bind."""
     return parse_vehicle(dict(
         name="paper-example", mass_wet_kg=1905.0, mass_dry_kg=1505.0,
         thrust_max_n=6 * 3100.0, throttle_min=0.3, throttle_max=0.8, isp_s=225.0,

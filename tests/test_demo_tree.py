@@ -19,7 +19,7 @@ def test_demo_tree_is_committed_with_default_backend():
 def test_demo_tree_regenerates_byte_for_byte(tmp_path):
     m = json.loads((DEMO_TREE / "manifest.json").read_text())
     out = tmp_path / "demo"
-    generate(DEMO_VEHICLE, m["horizon"], out, backend=m["backend"], prefix=m["prefix"],
+    generate(DEMO_VEHICLE, m["horizon"], out, backend=m["backend"], c_name=m["c_name"],
              precision=m["precision"])
     fresh = json.loads((out / "manifest.json").read_text())
     # The tree follows the installed versions (CVXPY's canonicalisation above

@@ -58,7 +58,7 @@ def make_tree(path: Path, horizon: int = 10, backend: str = "reference") -> Path
     path.mkdir(parents=True, exist_ok=True)
     shutil.copy(DEMO_VEHICLE, path / "vehicle.toml")
     (path / "manifest.json").write_text(json.dumps(
-        {"backend": backend, "horizon": horizon, "prefix": "dryrun"}))
+        {"backend": backend, "horizon": horizon, "c_name": "dryrun"}))
     return path
 
 

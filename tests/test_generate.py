@@ -15,7 +15,8 @@ import numpy as np
 import pytest
 
 from codegen.bind import load_solver
-from codegen.emit import check_prefix, generate, verify_tree
+from codegen import cli
+from codegen.emit import check_c_name, generate, read_manifest, verify_tree
 from codegen.errors import InputError
 from codegen.reference import ReferenceSolver
 from conftest import DEMO_STATE, DEMO_VEHICLE
@@ -40,7 +41,7 @@ def test_tree_layout_and_manifest(ecos_tree):
     m = verify_tree(ecos_tree)
     assert m["backend"] == "cvxpygen-ecos" and m["horizon"] == N_ECOS
     for f in ("README.md", "Makefile", "CMakeLists.txt", "vehicle.toml", "include/pdg_guidance.h",
-              "src/pdg_guidance.c", "src/pdg_backend.c", "example/pdg_example.c"):
+              "src/pdg_guidance.c", "src/pdg_backend.c", "app/pdg_plan_once.c"):
         assert f in m["files"], f
     readme = (ecos_tree / "README.md").read_text()
     assert "not flight-qualified" in readme.lower() and "Not reentrant" in readme
@@ -68,7 +69,7 @@ def test_builds_standalone_with_make_and_cmake(ecos_tree, tmp_path):
     r = subprocess.run(["make", "-j2"], cwd=build, capture_output=True, text=True)
     assert r.returncode == 0, r.stderr[-3000:]
     assert "-Wall -Wextra -Werror" in r.stdout
-    r = subprocess.run(["./build/pdg_example"], cwd=build, capture_output=True, text=True)
+    r = subprocess.run(["./build/pdg_plan_once"], cwd=build, capture_output=True, text=True)
     assert r.returncode == 0 and "status optimal" in r.stdout
     if shutil.which("cmake"):
         r = subprocess.run(["cmake", "-S", ".", "-B", "build-cmake"], cwd=build, capture_output=True,
@@ -77,7 +78,7 @@ def test_builds_standalone_with_make_and_cmake(ecos_tree, tmp_path):
         r = subprocess.run(["cmake", "--build", "build-cmake", "-j2"], cwd=build,
                            capture_output=True, text=True)
         assert r.returncode == 0, r.stdout[-3000:] + r.stderr[-3000:]
-        assert (build / "build-cmake" / "pdg_example").exists()
+        assert (build / "build-cmake" / "pdg_plan_once").exists()
 
 
 def test_agrees_with_reference_fixed_and_searched(ecos_solver):
@@ -126,9 +127,9 @@ def test_bad_input_through_c_api_leaves_plan_untouched(ecos_solver, pos, vel, ma
 
 def test_bad_settings_refused(ecos_solver):
     ffi, lib = ecos_solver.ffi, ecos_solver.lib
-    settings = ffi.new("pdg_settings *")
-    lib.pdg_settings_default(settings)
-    settings.max_iterations = 0
+    settings = ffi.new("pdg_guidance_config *")
+    lib.pdg_guidance_config_init(settings)
+    settings.iterations_per_solve_max = 0
     inp = ffi.new("pdg_input *", {"position_m": DEMO_STATE[0], "velocity_mps": DEMO_STATE[1],
                                   "mass_kg": DEMO_STATE[2], "time_of_flight_s": 40.0})
     assert lib.pdg_plan_descent(ffi.new("pdg_workspace *"), inp, settings,
@@ -144,17 +145,20 @@ def test_edited_tree_is_refused(ecos_tree, tmp_path):
         load_solver(copy)
 
 
-@pytest.mark.parametrize("prefix", ["9abc", "a-b", "int", "cpg_x", "", "averyveryverylongprefix", "Pdg"])
-def test_prefix_must_be_c_identifier(prefix):
-    with pytest.raises(InputError, match="--prefix"):
-        check_prefix(prefix)
+@pytest.mark.parametrize("c_name", ["9abc", "a-b", "int", "cpg_x", "", "averyveryverylongprefix", "Pdg"])
+def test_c_name_must_be_c_identifier(c_name):
+    with pytest.raises(InputError, match="--c-name"):
+        check_c_name(c_name)
 
 
-def test_custom_prefix(tmp_path):
+def test_custom_c_name(tmp_path):
     out = tmp_path / "lander"
-    generate(DEMO_VEHICLE, 4, out, backend="cvxpygen-ecos", prefix="lnd")
+    assert cli.main(["generate", str(DEMO_VEHICLE), "--horizon", "4", "--backend", "cvxpygen-ecos",
+                     "--c-name", "lnd", "--out", str(out)]) == 0
     s = load_solver(out)
     assert (out / "include" / "lnd_guidance.h").exists()
+    assert (out / "app" / "lnd_plan_once.c").exists()
+    assert read_manifest(out)["c_name"] == "lnd"
     assert s.solve(*DEMO_STATE, time_of_flight_s=40.0).status == "optimal"
 
 

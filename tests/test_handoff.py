@@ -143,7 +143,7 @@ def test_layout_hashes_and_generated_files_unchanged(built):
     files = sorted(str(p.relative_to(pkg)) for p in pkg.rglob("*") if p.is_file())
     for must in ("Makefile", "CMakeLists.txt", "README.md", "vehicle.toml", "MANIFEST.sha256",
                  "generation-manifest.json", "include/pdg_guidance.h", "solver/pdg_socp.c",
-                 "example/pdg_example.c", "test/pdg_test_runner.c", "test/pdg_vectors.c",
+                 "app/pdg_plan_once.c", "test/pdg_test_runner.c", "test/pdg_vectors.c",
                  "test/pdg_vectors.h", "record/verification.md", "record/verification.html"):
         assert must in files, must
     assert not [f for f in files if f.endswith((".py", ".pyc", ".o", ".a"))]

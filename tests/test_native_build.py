@@ -33,8 +33,8 @@ static pdg_socp_work wa, wb;
 
 int main(int argc, char **argv)
 {
-    static pdg_real p[PDG_SOCP_NPARAM];
-    pdg_socp_settings st;
+    static pdg_real p[PDG_SOCP_NUM_PARAMS];
+    pdg_socp_config st;
     FILE *f;
     int ncase, c, i;
     if (argc < 2 || (f = fopen(argv[1], "r")) == NULL) {
@@ -43,10 +43,10 @@ int main(int argc, char **argv)
     if (fscanf(f, "%d", &ncase) != 1) {
         return 3;
     }
-    pdg_socp_settings_default(&st);
+    pdg_socp_config_init(&st);
     for (c = 0; c < ncase; ++c) {
         int sa, sb;
-        for (i = 0; i < PDG_SOCP_NPARAM; ++i) {
+        for (i = 0; i < PDG_SOCP_NUM_PARAMS; ++i) {
             double v;
             if (fscanf(f, "%lf", &v) != 1) {
                 return 4;
@@ -88,7 +88,7 @@ def test_strict_compile_and_no_heap_symbols(demo20, tmp_path, precision):
     defined = subprocess.run(["nm", "--defined-only", "-g", str(obj)], check=True,
                              capture_output=True, text=True).stdout
     exported = sorted(line.split()[-1] for line in defined.splitlines() if line.strip())
-    assert exported == ["pdg_socp_settings_default", "pdg_socp_solve"]
+    assert exported == ["pdg_socp_config_init", "pdg_socp_solve"]
 
 
 def test_sanitizers_find_nothing_and_agree_with_cffi_build(demo20, tmp_path):
@@ -147,14 +147,14 @@ UNINIT_DRIVER = r"""
 
 int main(int argc, char **argv)
 {
-    static pdg_real p[PDG_SOCP_NPARAM];
+    static pdg_real p[PDG_SOCP_NUM_PARAMS];
     pdg_socp_work *w = malloc(sizeof *w);    /* the driver's heap, not the solver's */
     FILE *f;
     int i, st;
     if (argc < 2 || w == NULL || (f = fopen(argv[1], "r")) == NULL) {
         return 2;
     }
-    for (i = 0; i < PDG_SOCP_NPARAM; ++i) {
+    for (i = 0; i < PDG_SOCP_NUM_PARAMS; ++i) {
         double v;
         if (fscanf(f, "%lf", &v) != 1) {
             return 3;

@@ -61,7 +61,7 @@ def test_descent_program_is_periodic_over_its_interior_stages(demo_vehicle, hori
             c1 = sym.Ki[sym.Kp[k]:sym.Kp[k + 1]]
             c2 = sym.Ki[sym.Kp[k + P]:sym.Kp[k + P + 1]]
             assert np.array_equal(c1 + P, c2), (s, c)
-        assert sym.Lp[k0 + (s + 1) * P] - sym.Lp[k0 + s * P] == kern.lx[1]
+        assert sym.Lp[k0 + (s + 1) * P] - sym.Lp[k0 + s * P] == kern.l_val[1]
         assert sym.Kp[k0 + (s + 1) * P] - sym.Kp[k0 + s * P] == kern.kkt[1]
     # and not beyond it: the last stage (no dynamics out of it) is smaller
     end = k0 + kern.count * P

@@ -22,9 +22,14 @@ from codegen.errors import InputError  # noqa: E402
 from codegen.backends.native import DEFAULTS, describe, real_literal, render  # noqa: E402
 from codegen.backends.native.cbuild import NativeSolver, compile_shared  # noqa: E402
 from codegen.model.problem import DescentProblem, time_of_flight_bracket  # noqa: E402
+from codegen.reference import CLARABEL_TIGHT  # noqa: E402
 
-SOLVED, INFEASIBLE, UNBOUNDED, MAX_ITER, NUMERICAL, SOLVED_REDUCED = range(6)
-CLARABEL_STATUS = {"Solved": SOLVED, "PrimalInfeasible": INFEASIBLE, "DualInfeasible": UNBOUNDED}
+from codegen.backends.native import (BREAKDOWN, CAUSE_NO_PARAMS, CAUSE_NO_PROGRESS, CONVERGED,  # noqa: E402
+                                     CONVERGED_COARSE, ITERATION_CAP)
+from codegen.backends.native import INFEASIBLE_CERTIFIED as INFEASIBLE  # noqa: E402
+from codegen.backends.native import UNBOUNDED_CERTIFIED as UNBOUNDED  # noqa: E402
+
+CLARABEL_STATUS = {"Solved": CONVERGED, "PrimalInfeasible": INFEASIBLE, "DualInfeasible": UNBOUNDED}
 OBJ_TOL = 1e-6          # issue 4 target, double precision
 
 
@@ -42,8 +47,7 @@ def clarabel_solve(data: dict, nonneg: int, soc) -> tuple:
     cones += [clarabel.SecondOrderConeT(int(q)) for q in soc]
     st = clarabel.DefaultSettings()
     st.verbose = False
-    for key, val in dict(tol_gap_abs=1e-9, tol_gap_rel=1e-9, tol_feas=1e-9, tol_infeas_abs=1e-9,
-                         tol_infeas_rel=1e-9, max_iter=200).items():
+    for key, val in CLARABEL_TIGHT.items():      # the reference's settings (1e-9)
         setattr(st, key, val)
     sol = clarabel.DefaultSolver(sp.csc_matrix((n, n)), np.asarray(data["c"], float), a_all,
                                  b_all, cones, st).solve()
@@ -57,9 +61,9 @@ def rel_err(ours: float, ref: float) -> float:
 def build(prog, tmp_path_factory, name, **kw) -> NativeSolver:
     files = render(prog, **kw)
     out = tmp_path_factory.mktemp(name)
-    lib = compile_shared(files, out, prefix=kw.get("prefix", "pdg"))
-    return NativeSolver(lib, out / f"{kw.get('prefix', 'pdg')}_socp.h",
-                        prefix=kw.get("prefix", "pdg"))
+    c_name = kw.get("c_name", "pdg")
+    lib = compile_shared(files, out, c_name=c_name)
+    return NativeSolver(lib, out / f"{c_name}_socp.h", c_name=c_name)
 
 
 def in_cone(v: np.ndarray, nonneg: int, soc, tol: float) -> bool:
@@ -229,7 +233,7 @@ def _check_against_clarabel(fam, solver, params, expect):
     data = prog.evaluate(params)
     A, G, b, h, c = data["A"], data["G"], data["b"], data["h"], data["c"]
     x, y, z, s = res["x"], res["y"], res["z"], res["s"]
-    if expect == SOLVED:
+    if expect == CONVERGED:
         assert rel_err(res["objective"], ref_obj) <= OBJ_TOL, (res["objective"], ref_obj)
         scale = 1.0 + max(np.abs(b).max(initial=0), np.abs(h).max(initial=0))
         assert np.abs(A @ x - b).max(initial=0) <= 1e-7 * scale
@@ -238,13 +242,13 @@ def _check_against_clarabel(fam, solver, params, expect):
         assert in_cone(s, prog.nonneg, prog.soc, 1e-9) and in_cone(z, prog.nonneg, prog.soc, 1e-9)
     elif expect == INFEASIBLE:            # Farkas certificate, scaled to b'y + h'z = -1
         assert b @ y + h @ z == pytest.approx(-1.0, abs=1e-9)
-        assert np.linalg.norm(A.T @ y + G.T @ z) <= DEFAULTS["double"]["tol_infeas"] * 1.0001
+        assert np.linalg.norm(A.T @ y + G.T @ z) <= DEFAULTS["double"]["certificate_stop"] * 1.0001
         assert in_cone(z, prog.nonneg, prog.soc, 0.0)
         assert res["objective"] == np.inf
     else:                                  # improving ray, scaled to c'x = -1
         assert c @ x == pytest.approx(-1.0, abs=1e-9)
-        assert np.linalg.norm(A @ x) <= DEFAULTS["double"]["tol_infeas"] * 1.0001
-        assert np.linalg.norm(G @ x + s) <= DEFAULTS["double"]["tol_infeas"] * 1.0001
+        assert np.linalg.norm(A @ x) <= DEFAULTS["double"]["certificate_stop"] * 1.0001
+        assert np.linalg.norm(G @ x + s) <= DEFAULTS["double"]["certificate_stop"] * 1.0001
         assert in_cone(s, prog.nonneg, prog.soc, 0.0)
         assert res["objective"] == -np.inf
     return res
@@ -252,7 +256,7 @@ def _check_against_clarabel(fam, solver, params, expect):
 
 def test_random_feasible_agree_with_clarabel(family):
     fam, solver = family
-    results = [_check_against_clarabel(fam, solver, fam.feasible(), SOLVED) for _ in range(10)]
+    results = [_check_against_clarabel(fam, solver, fam.feasible(), CONVERGED) for _ in range(10)]
     compared = [r for r in results if r is not None]
     assert len(compared) >= 8
     assert max(r["iterations"] for r in compared) <= 40
@@ -288,10 +292,10 @@ def test_unbounded_breakdowns_are_recovered(tmp_path_factory):
 def test_iteration_limit_is_reported(family):
     fam, solver = family
     params = fam.feasible()
-    res = solver.solve(params, settings=solver.settings(max_iter=1))
-    assert res["status"] == MAX_ITER and res["iterations"] == 1
-    res = solver.solve(params, settings=solver.settings(max_iter=10 ** 6))   # clamped to the cap
-    assert res["status"] == SOLVED
+    res = solver.solve(params, settings=solver.settings(iteration_cap=1))
+    assert res["status"] == ITERATION_CAP and res["iterations"] == 1
+    res = solver.solve(params, settings=solver.settings(iteration_cap=10 ** 6))   # clamped to the cap
+    assert res["status"] == CONVERGED
 
 
 # ------------------------------------------------------------------- descent problem
@@ -332,7 +336,7 @@ def test_descent_n20_agrees_with_clarabel(demo_vehicle, descent20):
     # the nominal demo state, and a time of flight far too short (infeasible)
     cases.append(flat_parameters(dp, dp.values([1500, 0, 1500], [-50, 0, -40], 1900, 40.0)))
     cases.append(flat_parameters(dp, dp.values([1500, 0, 1500], [-50, 0, -40], 1900, 5.0)))
-    seen = {SOLVED: 0, INFEASIBLE: 0}
+    seen = {CONVERGED: 0, INFEASIBLE: 0}
     worst_it, worst_err = 0, 0.0
     for params in cases:
         ref_status, ref_obj, expect, res = _agree(prog, solver, params)
@@ -341,9 +345,9 @@ def test_descent_n20_agrees_with_clarabel(demo_vehicle, descent20):
         assert res["status"] == expect, (ref_status, res)
         seen[expect] = seen.get(expect, 0) + 1
         worst_it = max(worst_it, res["iterations"])
-        if expect == SOLVED:
+        if expect == CONVERGED:
             worst_err = max(worst_err, rel_err(res["objective"], ref_obj))
-    assert seen[SOLVED] >= 3 and seen[INFEASIBLE] >= 3, seen
+    assert seen[CONVERGED] >= 3 and seen[INFEASIBLE] >= 3, seen
     assert worst_err <= OBJ_TOL
     assert worst_it <= 30, worst_it          # issue 4 target
 
@@ -364,31 +368,31 @@ def test_descent_n50_nominal_agrees_with_clarabel(demo_vehicle, tmp_path_factory
     solver = build(prog, tmp_path_factory, "descent50")
     params = flat_parameters(dp, dp.values([1500, 0, 1500], [-50, 0, -40], 1900, 40.0))
     ref_status, ref_obj, expect, res = _agree(prog, solver, params)
-    assert expect == SOLVED and res["status"] == SOLVED
+    assert expect == CONVERGED and res["status"] == CONVERGED
     assert rel_err(res["objective"], ref_obj) <= OBJ_TOL
     assert res["iterations"] <= 30
 
 
-def test_reduced_tolerances_are_the_fallback_and_only_that(demo_vehicle, descent20):
-    """Full tolerances out of reach (1e-15, below double's rounding on these
+def test_coarse_stops_are_the_fallback_and_only_that(demo_vehicle, descent20):
+    """Full stops out of reach (1e-15, below double's rounding on these
     residuals): the solve ends on a breakdown or the iteration limit, and
-    returns SOLVED_REDUCED with an objective that meets the reduced gap
-    against Clarabel. With the reduced ones out of reach too it must not
+    returns CONVERGED_COARSE with an objective that meets the coarse gap
+    against Clarabel. With the coarse ones out of reach too it must not
     claim a solution at all."""
     dp, prog, solver = descent20
     params = flat_parameters(dp, dp.values([1500, 0, 1500], [-50, 0, -40], 1900, 40.0))
     ref_status, ref_obj = clarabel_solve(prog.evaluate(params), prog.nonneg, prog.soc)
     assert ref_status == "Solved"
-    unreachable = dict(tol_feas=1e-15, tol_gap_abs=1e-15, tol_gap_rel=1e-15, max_iter=40)
+    unreachable = dict(residual_stop=1e-15, gap_abs_stop=1e-15, gap_rel_stop=1e-15, iteration_cap=40)
     res = solver.solve(params, settings=solver.settings(**unreachable))
-    assert res["status"] == SOLVED_REDUCED, res
-    assert res["pres"] <= DEFAULTS["double"]["tol_feas_reduced"]
-    assert rel_err(res["objective"], ref_obj) <= 10 * DEFAULTS["double"]["tol_gap_reduced"]
+    assert res["status"] == CONVERGED_COARSE, res
+    assert res["primal_residual"] <= DEFAULTS["double"]["residual_stop_coarse"]
+    assert rel_err(res["objective"], ref_obj) <= 10 * DEFAULTS["double"]["gap_stop_coarse"]
     res = solver.solve(params, settings=solver.settings(
-        **unreachable, tol_feas_reduced=1e-15, tol_gap_reduced=1e-15))
-    assert res["status"] in (MAX_ITER, NUMERICAL), res
-    # and a reachable solve still says SOLVED, not the fallback
-    assert solver.solve(params)["status"] == SOLVED
+        **unreachable, residual_stop_coarse=1e-15, gap_stop_coarse=1e-15))
+    assert res["status"] in (ITERATION_CAP, BREAKDOWN), res
+    # and a reachable solve still says CONVERGED, not the fallback
+    assert solver.solve(params)["status"] == CONVERGED
 
 
 @pytest.mark.slow
@@ -398,7 +402,7 @@ def test_edge_of_feasibility_ends_by_the_progress_guard(demo_vehicle, tmp_path_f
     proves it infeasible, but barely; our iterates send tau and kappa to
     zero together and then drifted for the whole budget of 100 iterations.
     The progress guard must end the solve early and honestly: no optimal
-    verdict, and NUMERICAL only with cause 6."""
+    verdict, and BREAKDOWN only with cause NO_PROGRESS."""
     dp = DescentProblem(demo_vehicle, 50)
     prog = extract(dp)
     solver = build(prog, tmp_path_factory, "edge50")
@@ -408,9 +412,9 @@ def test_edge_of_feasibility_ends_by_the_progress_guard(demo_vehicle, tmp_path_f
     ref_status, _ = clarabel_solve(prog.evaluate(params), prog.nonneg, prog.soc)
     assert ref_status == "PrimalInfeasible"
     res = solver.solve(params)
-    assert res["status"] in (INFEASIBLE, NUMERICAL), res
-    if res["status"] == NUMERICAL:
-        assert res["numerical_cause"] == 6, res
+    assert res["status"] in (INFEASIBLE, BREAKDOWN), res
+    if res["status"] == BREAKDOWN:
+        assert res["breakdown_cause"] == CAUSE_NO_PROGRESS, res
     assert res["iterations"] < 70, res           # was 100 (the iteration limit)
 
 
@@ -438,16 +442,16 @@ def test_single_precision_meets_its_tolerance_on_demo(demo_vehicle, tmp_path_fac
     prog = extract(dp)
     solver = build(prog, tmp_path_factory, "descent50_single", precision="single")
     assert solver.real == "float"
-    tol = DEFAULTS["single"]["tol_gap_rel"]
+    tol = DEFAULTS["single"]["gap_rel_stop"]
     for state in (([1500, 0, 1500], [-50, 0, -40], 1900, 40.0),
                   ([1800, 200, 1300], [-30, 10, -50], 1880, 45.0)):
         params = flat_parameters(dp, dp.values(*state))
         ref_status, ref_obj = clarabel_solve(prog.evaluate(params), prog.nonneg, prog.soc)
         assert ref_status == "Solved"
         res = solver.solve(params)
-        assert res["status"] == SOLVED, res
+        assert res["status"] == CONVERGED, res
         assert rel_err(res["objective"], ref_obj) <= tol
-        assert res["pres"] <= tol and res["dres"] <= tol
+        assert res["primal_residual"] <= tol and res["dual_residual"] <= tol
 
 
 # ------------------------------------------------------------------- generation
@@ -457,7 +461,7 @@ def test_render_is_deterministic_and_literals_round_trip(demo_vehicle):
     a, b = render(prog), render(prog)
     assert a == b and sorted(a) == ["pdg_socp.c", "pdg_socp.h"]
     assert "typedef double pdg_real;" in a["pdg_socp.h"]
-    single = render(prog, prefix="lander", precision="single")
+    single = render(prog, c_name="lander", precision="single")
     assert sorted(single) == ["lander_socp.c", "lander_socp.h"]
     assert "typedef float lander_real;" in single["lander_socp.h"]
     for v in (0.1, 1.0 / 3.0, -2.5e-300, 123456789.125, 1e22):
@@ -488,12 +492,12 @@ def test_bad_arguments_are_refused(demo_vehicle):
     prog = extract(dp)
     with pytest.raises(InputError, match="precision"):
         render(prog, precision="half")
-    with pytest.raises(InputError, match="prefix"):
-        render(prog, prefix="9lives")
-    with pytest.raises(InputError, match="settings.tol_feas"):
-        render(prog, settings={"tol_feas": -1})
-    with pytest.raises(InputError, match="settings.max_iter"):
-        render(prog, settings={"max_iter": 10 ** 6})
+    with pytest.raises(InputError, match="c_name"):
+        render(prog, c_name="9lives")
+    with pytest.raises(InputError, match="settings.residual_stop"):
+        render(prog, settings={"residual_stop": -1})
+    with pytest.raises(InputError, match="settings.iteration_cap"):
+        render(prog, settings={"iteration_cap": 10 ** 6})
     with pytest.raises(InputError, match="settings.bogus"):
         render(prog, settings={"bogus": 1})
 
@@ -504,10 +508,10 @@ def test_non_finite_or_missing_parameters_are_not_solved(descent20):
     bad = params.copy()
     bad[0] = np.nan
     res = solver.solve(bad)
-    assert res["status"] == NUMERICAL
+    assert res["status"] == BREAKDOWN
     w = solver.new_work()
     status = getattr(solver.lib, "pdg_socp_solve")(w, solver.ffi.NULL, solver.ffi.NULL)
-    assert status == NUMERICAL and w.numerical_cause == 5
+    assert status == BREAKDOWN and w.breakdown_cause == CAUSE_NO_PARAMS
 
 
 def test_constant_program_without_parameters_compiles_strictly(tmp_path_factory):
@@ -538,5 +542,5 @@ def test_constant_program_without_parameters_compiles_strictly(tmp_path_factory)
     solver = build(prog, tmp_path_factory, "constant")
     ref_status, ref_obj = clarabel_solve(data, fam.nonneg, fam.soc)
     res = solver.solve(np.zeros(0))
-    assert ref_status == "Solved" and res["status"] == SOLVED
+    assert ref_status == "Solved" and res["status"] == CONVERGED
     assert rel_err(res["objective"], ref_obj) <= OBJ_TOL

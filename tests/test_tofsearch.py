@@ -262,13 +262,13 @@ void stub_config(double win_lo, double win_hi, double opt, double band_lo, doubl
 int stub_calls_made(void) { return stub_calls; }
 double stub_dt(int i) { return stub_log[i]; }
 
-int pdg_backend_solve(pdg_backend_work *bw, const double *params, int max_iterations,
+int pdg_backend_solve(pdg_backend_work *bw, const double *params, int iteration_cap,
                       double *objective, int *iterations)
 {
     const double dt = params[stub_dt_index];
     const int k = stub_calls;
     (void)bw;
-    (void)max_iterations;
+    (void)iteration_cap;
     if (k < STUB_LOG) {
         stub_log[k] = dt;
     }

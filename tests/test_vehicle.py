@@ -117,6 +117,9 @@ def test_derived_bounds_include_engine_cant():
     from conftest import paper_example_vehicle
     v = paper_example_vehicle()
     # Net thrust bounds of the paper example: about 4972 N and 13258 N
-    # (Acikmese & Ploen 2007 as reproduced, see CHECKS.md).
+    # (Açıkmeşe & Ploen 2007, J. Guidance, Control, and Dynamics 30(5): six
+    # 3100 N engines canted 27 deg at 0.3 and 0.8 throttle, 6 x 3100 x
+    # cos 27 deg x 0.3 and x 0.8). Recalled and approximate: the values as
+    # widely reproduced, not read from the paper's tables.
     assert v.thrust_lower_n == pytest.approx(4972, abs=1.0)
     assert v.thrust_upper_n == pytest.approx(13258, abs=1.0)

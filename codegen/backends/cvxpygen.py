@@ -77,16 +77,16 @@ class CvxpygenBackend:
             # infeasible, -1 iteration limit, 10+ "close to" the same; the
             # inaccurate ones count as numerical trouble, as in the reference.
             status_map = [(0, 0), (1, 1), (2, 3), (-1, 2), (10, 3), (11, 3), (12, 3)]
-            set_max_iter = "cpg_set_solver_maxit"
+            set_iteration_cap = "cpg_set_solver_maxit"
         else:
             # QOCO custom solver codes (utils.h): 1 solved, 2 solved
             # inaccurately, 3 numerical error, 4 iteration limit, 0 unsolved.
             # QOCO has no infeasibility certificate: an infeasible instance
             # shows up as an iteration limit or numerical trouble.
             status_map = [(1, 0), (2, 3), (3, 3), (4, 2), (0, 3)]
-            set_max_iter = "cpg_set_solver_max_iters"
+            set_iteration_cap = "cpg_set_solver_max_iters"
         adapter = render("backend_cvxpygen.c.j2", dict(ctx, updates=updates, status_map=status_map,
-                                                      set_max_iter=set_max_iter,
+                                                      set_iteration_cap=set_iteration_cap,
                                                       solver_label=self.label))
         return BackendOutput(files=files, adapter_c=adapter, solver_sources=srcs,
                              include_dirs=incs, defines=defines, solver_strict=False,

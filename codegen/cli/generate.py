@@ -9,7 +9,7 @@ from codegen.cli.common import positive_int
 
 def register(sub) -> None:
     from codegen.backends import DEFAULT_BACKEND
-    from codegen.emit import DEFAULT_PREFIX
+    from codegen.emit import DEFAULT_C_NAME
 
     s = sub.add_parser("generate", help="generate a C guidance solver tree")
     s.add_argument("vehicle")
@@ -17,7 +17,8 @@ def register(sub) -> None:
     s.add_argument("--backend", default=DEFAULT_BACKEND,
                    help=f"native, cvxpygen-ecos or cvxpygen-qoco (default {DEFAULT_BACKEND})")
     s.add_argument("--out", required=True, help="directory of the tree")
-    s.add_argument("--prefix", default=DEFAULT_PREFIX, help="C identifier prefix (default pdg)")
+    s.add_argument("--c-name", default=DEFAULT_C_NAME,
+                   help=f"prefix of the tree's C identifiers and file names (default {DEFAULT_C_NAME})")
     s.add_argument("--precision", default="double", choices=("double", "single"))
     s.set_defaults(func=run)
 
@@ -28,7 +29,7 @@ def run(args) -> int:
     def say(msg):
         print(f"pdgc: {msg}", file=sys.stderr)
 
-    m = generate(args.vehicle, args.horizon, args.out, backend=args.backend, prefix=args.prefix,
+    m = generate(args.vehicle, args.horizon, args.out, backend=args.backend, c_name=args.c_name,
                  precision=args.precision, progress=say)
     print(f"generated {args.out}: backend {m['backend']}, N = {m['horizon']}, "
           f"{len(m['files'])} files, {m['generation_seconds']:.1f} s")

@@ -5,7 +5,8 @@ solver, solves the problem built here, and every one of them computes its
 parameters with the same rules as :func:`parameter_values` (the C guidance
 layer mirrors it line for line).
 
-Formulation (see FORMULATION.md of the design notes):
+Formulation (published sources named below; the points decided in code are
+listed in DEVELOPERS.md, section "The formulation"):
   change of variables u = T/m, sigma = Gamma/m, z = ln m (Acikmese & Ploen
   2007); thrust bounds convexified losslessly with a second-order lower and a
   first-order upper Taylor bound around z0(t) = ln(m0 - alpha rho2 t);

@@ -59,7 +59,7 @@ def write_dry_run_tree(directory, vehicle_path, horizon: int) -> Path:
     d.mkdir(parents=True, exist_ok=True)
     write_atomic(d / "vehicle.toml", Path(vehicle_path).read_bytes())
     write_atomic(d / "manifest.json", json.dumps(
-        {"backend": "reference", "horizon": int(horizon), "prefix": "dryrun",
+        {"backend": "reference", "horizon": int(horizon), "c_name": "dryrun",
          "note": "dry run: the reference solver stands in for generated C"}, indent=2) + "\n")
     return d
 

@@ -52,7 +52,7 @@ class Vector:
     mass_kg: float
     time_of_flight_s: float   # 0.0: searched
     target_m: list = field(default_factory=lambda: [0.0, 0.0, 0.0])
-    max_iterations: int | None = None     # None: the default settings
+    iterations_per_solve_max: int | None = None     # None: the default settings
     tof_tolerance_s: float | None = None
     null_workspace: bool = False
     status: str = OPTIMAL
@@ -177,10 +177,10 @@ def build_vectors(vehicle, horizon: int, progress=None) -> list:
     # The C API's own contract: settings out of range, NULL workspace, tiny iteration cap.
     fixed_tof = mid.expect_tof_s if mid.status == OPTIMAL else 0.5 * (t_min + t_max)
     contract = [
-        ("settings-iterations-zero", dict(max_iterations=0), BAD_INPUT),
+        ("settings-iterations-zero", dict(iterations_per_solve_max=0), BAD_INPUT),
         ("settings-tolerance-zero", dict(tof_tolerance_s=0.0), BAD_INPUT),
         ("null-workspace", dict(null_workspace=True), BAD_INPUT),
-        ("iteration-cap", dict(max_iterations=TINY_ITERATION_CAP, time_of_flight_s=fixed_tof),
+        ("iteration-cap", dict(iterations_per_solve_max=TINY_ITERATION_CAP, time_of_flight_s=fixed_tof),
          ITERATION_LIMIT),
     ]
     for name, change, status in contract:

@@ -12,8 +12,8 @@ ordering, one interior stage's factorisation and sweeps are also emitted as
 straight-line code (:mod:`codegen.backends.native.kernel`), called once per stage:
 a constant amount of code, independent of the horizon.
 
-The C API (PREFIX = prefix.upper()) is described in the generated header:
-``{prefix}_socp_settings_default``, ``{prefix}_socp_solve``, the workspace
+The C API (prefix = ``c_name``, PREFIX = its upper case) is described in the generated header:
+``{prefix}_socp_config_init``, ``{prefix}_socp_solve``, the workspace
 struct ``{prefix}_socp_work`` (``x``, ``y``, ``z``, ``s``, ``objective``,
 ``iterations``, ``status``, ...) and ``enum {prefix}_socp_status``.
 """
@@ -21,6 +21,7 @@ struct ``{prefix}_socp_work`` (``x``, ``y``, ``z``, ``s``, ``objective``,
 from __future__ import annotations
 
 import re
+import textwrap
 from pathlib import Path
 
 import jinja2
@@ -38,10 +39,70 @@ TEMPLATE_DIR = TEMPLATES_DIR / "native"
 #: Default KKT ordering by precision (see codegen.backends.native.symbolic).
 DEFAULT_ORDERING = {"double": "auto", "single": "staged"}
 
-#: Compile-time cap on the iteration limit (the setting is clamped to it).
-MAX_ITER_CAP = 200
+#: Compile-time bound on the iteration_cap setting (a larger one is clamped to it).
+ITERATIONS_HARD_LIMIT = 200
 
-#: Settings defaults by precision. Double: the tolerances of common embedded
+#: Statuses of the solver core (enum {c_name}_socp_status): value, name, meaning.
+STATUSES = (
+    (0, "CONVERGED", "residuals below residual_stop and gap below the gap stops: "
+                     "x, y, z, s are the solution"),
+    (1, "INFEASIBLE_CERTIFIED", "primal infeasibility proven: y, z hold a Farkas certificate, "
+                                "scaled so that b'y + h'z = -1"),
+    (2, "UNBOUNDED_CERTIFIED", "dual infeasibility proven (objective unbounded below): x, s hold "
+                               "an improving ray, scaled so that c'x = -1"),
+    (3, "ITERATION_CAP", "iteration_cap reached with no verdict and no coarse fallback "
+                         "(x, y, z, s: the last iterate divided by tau)"),
+    (4, "BREAKDOWN", "the iteration broke down even with the raised kkt_shift, or no verdict "
+                     "came closer (breakdown_cause says which); no answer"),
+    (5, "CONVERGED_COARSE", "only the coarse stops were met: a breakdown or the iteration cap "
+                            "came first (breakdown_cause says which); x, y, z, s are the best "
+                            "iterate that met them"),
+)
+CONVERGED, INFEASIBLE_CERTIFIED, UNBOUNDED_CERTIFIED, ITERATION_CAP, BREAKDOWN, \
+    CONVERGED_COARSE = (value for value, _, _ in STATUSES)
+
+#: Causes of a breakdown (enum {c_name}_socp_cause): value, name, meaning.
+CAUSES = (
+    (0, "NONE", "no breakdown"),
+    (1, "PIVOT_NOT_FINITE", "a pivot of the factorisation was not finite at the largest "
+                            "kkt_shift allowed"),
+    (2, "LOST_INTERIOR", "rounding in a step put s or z on or outside the boundary of the cone"),
+    (3, "STEP_VANISHED", "the step length to take fell below 1e-10"),
+    (4, "NOT_A_NUMBER", "a residual or mu was not a number (bad parameters or overflow)"),
+    (5, "NO_PARAMS", "params was NULL"),
+    (6, "NO_PROGRESS", "progress guard: no verdict (optimal, infeasible, unbounded) came twice "
+                       "as close to its stop in 20 iterations"),
+)
+CAUSE_NONE, CAUSE_PIVOT_NOT_FINITE, CAUSE_LOST_INTERIOR, CAUSE_STEP_VANISHED, \
+    CAUSE_NOT_A_NUMBER, CAUSE_NO_PARAMS, CAUSE_NO_PROGRESS = (value for value, _, _ in CAUSES)
+
+#: The run-time settings ({c_name}_socp_config), in struct order: name, C type,
+#: one-line meaning. All are relative to the scaled problem's data.
+SETTINGS = (
+    ("gap_abs_stop", "real", "converged needs s'z/tau^2 and the duality gap below the larger "
+                             "of this ..."),
+    ("gap_rel_stop", "real", "... and this times the smaller |objective|"),
+    ("residual_stop", "real", "converged needs the relative primal and dual residuals below this"),
+    ("certificate_stop", "real", "an infeasibility or unboundedness certificate is accepted when "
+                                 "its residual is below this times its margin"),
+    ("residual_stop_coarse", "real", "CONVERGED_COARSE needs the residuals below this ..."),
+    ("gap_stop_coarse", "real", "... and the gap below this, absolute and relative"),
+    ("iteration_cap", "int", "most interior-point iterations per solve; clamped to "
+                             "[0, ITERATIONS_HARD_LIMIT]"),
+    ("kkt_shift", "real", "static diagonal shift of the KKT matrix: +shift on the x block, "
+                          "-shift on the y and z blocks"),
+    ("pivot_floor", "real", "a pivot of the wrong sign or below this in magnitude ..."),
+    ("pivot_replacement", "real", "... is replaced by this, with the expected sign"),
+    ("correction_passes_max", "int", "most iterative-refinement passes per KKT solve"),
+    ("correction_stop", "real", "iterative refinement stops when the KKT residual is below this "
+                                "times (1 + the largest |c|, |b|, |h|), or below CORRECTION_MU_FACTOR "
+                                "(socp.c) times mu"),
+    ("boundary_step_share", "real", "share of the step to the cone's boundary that is taken, "
+                                    "in (0, 1)"),
+)
+_INT_SETTINGS = tuple(name for name, ctype, _ in SETTINGS if ctype == "int")
+
+#: Settings defaults by precision (keys: SETTINGS). Double: the tolerances of common embedded
 #: conic solvers (1e-8 relative; common practice). Single: float has about
 #: 7 significant digits (unit roundoff 6e-8) and the KKT system's condition
 #: number grows like 1/mu near the optimum, so feasibility, gap and
@@ -50,29 +111,30 @@ MAX_ITER_CAP = 200
 #: refinement steps) and the "staged" ordering (codegen.backends.native.symbolic).
 #: Measured on the demo (N = 20 and 50, dispersed states): objective within
 #: 2e-5 of Clarabel when solved, but about 1 feasible state in 5 and
-#: infeasible ones more often end NUMERICAL (never a wrong verdict seen).
-#: Reduced tolerances (tol_*_reduced): when a breakdown or the iteration
+#: infeasible ones more often end BREAKDOWN (never a wrong verdict seen).
+#: Coarse stops (*_stop_coarse): when a breakdown or the iteration
 #: limit stops the solve short of the full ones, an iterate that meets them
-#: is returned as SOLVED_REDUCED (the fallback of common embedded and
+#: is returned as CONVERGED_COARSE (the fallback of common embedded and
 #: desktop conic solvers, which report "inaccurate" or "almost solved";
 #: common practice). Double: 1e-6 on the residuals, 1e-7 on the gap, so the
 #: objective still meets the 1e-6 agreement asked of pdgc check; measured
 #: case: a state near the fuel limit whose residuals stalled at 2e-7 with
 #: the gap at 6e-10 (objective within 1e-10 of Clarabel). Single: 1e-3.
 DEFAULTS = {
-    "double": {"tol_gap_abs": 1e-8, "tol_gap_rel": 1e-8, "tol_feas": 1e-8, "tol_infeas": 1e-8,
-               "tol_feas_reduced": 1e-6, "tol_gap_reduced": 1e-7,
-               "max_iter": 100, "static_reg": 1e-8, "dynamic_reg_eps": 1e-13,
-               "dynamic_reg_delta": 2e-7, "refine_steps": 5, "refine_tol": 1e-12,
-               "step_fraction": 0.99},
-    "single": {"tol_gap_abs": 1e-4, "tol_gap_rel": 1e-4, "tol_feas": 1e-4, "tol_infeas": 1e-4,
-               "tol_feas_reduced": 1e-3, "tol_gap_reduced": 1e-3,
-               "max_iter": 100, "static_reg": 1e-4, "dynamic_reg_eps": 1e-5,
-               "dynamic_reg_delta": 1e-3, "refine_steps": 10, "refine_tol": 1e-6,
-               "step_fraction": 0.99},
+    "double": {"gap_abs_stop": 1e-8, "gap_rel_stop": 1e-8, "residual_stop": 1e-8, "certificate_stop": 1e-8,
+               "residual_stop_coarse": 1e-6, "gap_stop_coarse": 1e-7,
+               "iteration_cap": 100, "kkt_shift": 1e-8, "pivot_floor": 1e-13,
+               "pivot_replacement": 2e-7, "correction_passes_max": 5, "correction_stop": 1e-12,
+               "boundary_step_share": 0.99},
+    "single": {"gap_abs_stop": 1e-4, "gap_rel_stop": 1e-4, "residual_stop": 1e-4, "certificate_stop": 1e-4,
+               "residual_stop_coarse": 1e-3, "gap_stop_coarse": 1e-3,
+               "iteration_cap": 100, "kkt_shift": 1e-4, "pivot_floor": 1e-5,
+               "pivot_replacement": 1e-3, "correction_passes_max": 10, "correction_stop": 1e-6,
+               "boundary_step_share": 0.99},
 }
+assert all(list(d) == [name for name, _, _ in SETTINGS] for d in DEFAULTS.values())
 
-#: Refinement of a KKT solve stops once its residual is below this times mu
+#: Iterative refinement of a KKT solve stops once its residual is below this times mu
 #: (inexact Newton directions: the error only has to be small next to the
 #: complementarity it is reducing). Measured on the demo at N = 50 (pdgc
 #: check --cases 1000 --seed 11, and the example's 26-solve search under
@@ -80,19 +142,19 @@ DEFAULTS = {
 #: the same statuses and worst objective error 4e-9, 4e-9, 6e-9; 1e-1 took
 #: 2.5% more iterations, so 1e-2. Single precision keeps 1e-6: with 1e-2 a
 #: demo state stopped at residual 1.4e-4 against its 1e-4.
-_REFINE_MU_FACTOR = {"double": 1e-2, "single": 1e-6}
+_CORRECTION_MU_FACTOR = {"double": 1e-2, "single": 1e-6}
 
-#: On a breakdown the static regularisation is multiplied by the first
+#: On a breakdown the static shift (kkt_shift) is multiplied by the first
 #: number, up to the second times the setting (double: 1e-8 -> at most 1e-4;
 #: single: 1e-4 -> at most 1e-1 in tenfold steps, which the sweeps preferred).
-_REG_RAISE = {"double": (100.0, 1e4), "single": (10.0, 1e3)}
+_SHIFT_RAISE = {"double": (100.0, 1e4), "single": (10.0, 1e3)}
 
-_PREFIX_RE = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
+_C_NAME_RE = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
 
 
-def _check_args(prefix: str, precision: str, settings):
-    if not isinstance(prefix, str) or not _PREFIX_RE.match(prefix):
-        raise InputError("prefix", prefix, "must be a lower-case C identifier of at most 31 "
+def _check_args(c_name: str, precision: str, settings):
+    if not isinstance(c_name, str) or not _C_NAME_RE.match(c_name):
+        raise InputError("c_name", c_name, "must be a lower-case C identifier of at most 31 "
                          "characters (letters, digits, _; starting with a letter)")
     if precision not in DEFAULTS:
         raise InputError("precision", precision, "must be 'double' or 'single'")
@@ -101,13 +163,13 @@ def _check_args(prefix: str, precision: str, settings):
         if key not in merged:
             raise InputError(f"settings.{key}", val,
                              f"unknown setting; known: {', '.join(sorted(merged))}")
-        if key in ("max_iter", "refine_steps"):
+        if key in _INT_SETTINGS:
             if not isinstance(val, int) or isinstance(val, bool) or val < 0:
                 raise InputError(f"settings.{key}", val, "must be a non-negative integer")
-            if key == "max_iter" and val > MAX_ITER_CAP:
-                raise InputError("settings.max_iter", val, f"must be <= {MAX_ITER_CAP}")
-            if key == "refine_steps" and val > 32:
-                raise InputError("settings.refine_steps", val, "must be <= 32")
+            if key == "iteration_cap" and val > ITERATIONS_HARD_LIMIT:
+                raise InputError("settings.iteration_cap", val, f"must be <= {ITERATIONS_HARD_LIMIT}")
+            if key == "correction_passes_max" and val > 32:
+                raise InputError("settings.correction_passes_max", val, "must be <= 32")
         else:
             try:
                 fval = float(val)
@@ -115,8 +177,8 @@ def _check_args(prefix: str, precision: str, settings):
                 raise InputError(f"settings.{key}", val, "must be a number") from None
             if not (np.isfinite(fval) and fval > 0):
                 raise InputError(f"settings.{key}", val, "must be a finite positive number")
-            if key == "step_fraction" and not fval < 1:
-                raise InputError("settings.step_fraction", val, "must lie in (0, 1)")
+            if key == "boundary_step_share" and not fval < 1:
+                raise InputError("settings.boundary_step_share", val, "must lie in (0, 1)")
             val = fval
         merged[key] = val
     return merged
@@ -240,9 +302,10 @@ def _symbolic(prog: ConeProgram, ordering: str) -> KKTSymbolic:
     return sym
 
 
-def _context(prog, prefix, precision, settings, ordering, stage_kernel=True):
+def _context(prog, c_name, precision, settings, ordering, stage_kernel=True):
     _check_program(prog)
-    defaults = _check_args(prefix, precision, settings)
+    defaults = _check_args(c_name, precision, settings)
+    prefix = c_name
     if ordering is None:
         ordering = DEFAULT_ORDERING[precision]
     if ordering not in ("auto", "periodic", "staged", "minfill", "mindegree", "rcm", "natural"):
@@ -261,20 +324,21 @@ def _context(prog, prefix, precision, settings, ordering, stage_kernel=True):
                   len(aff["pcol"]), prog.A.nnz, prog.G.nnz)
     idx_type = "unsigned short" if largest < 65535 else "int"
     lit = {k: real_literal(v, precision) for k, v in defaults.items()
-           if k not in ("max_iter", "refine_steps")}
+           if k not in _INT_SETTINGS}
     ctx = dict(
         prefix=prefix, PREFIX=prefix.upper(), precision=precision, idx_type=idx_type,
-        refine_mu_factor=_REFINE_MU_FACTOR[precision],
-        reg_raise=_REG_RAISE[precision][0], reg_raise_cap=_REG_RAISE[precision][1],
+        correction_mu_factor=_CORRECTION_MU_FACTOR[precision],
+        shift_raise=_SHIFT_RAISE[precision][0], shift_raise_cap=_SHIFT_RAISE[precision][1],
         single=precision == "single", ctype="float" if precision == "single" else "double",
-        n_params=prog.n_params, n=prog.n, p=prog.p, m=prog.m, nonneg=prog.nonneg, nsoc=len(soc),
+        n_params=prog.n_params, n=prog.n, p=prog.p, m=prog.m, nonneg=prog.nonneg, num_soc=len(soc),
         dim=sym.dim, nnz_kkt=sym.nnz_kkt, nnz_L=sym.nnz_L, ndata=aff["ndata"],
-        max_iter_cap=MAX_ITER_CAP, off_d=aff["offs"]["d"], off_b=aff["offs"]["b"],
+        iterations_hard_limit=ITERATIONS_HARD_LIMIT, off_d=aff["offs"]["d"], off_b=aff["offs"]["b"],
         off_h=aff["offs"]["h"], off_A=aff["offs"]["A"], off_G=aff["offs"]["G"],
         nnz_A=prog.A.nnz, nnz_G=prog.G.nnz, nnz_zoff=nnz_zoff,
         nbase=len(aff["base_idx"]), nprow=len(aff["prow_idx"]),
-        defaults=defaults, lit=lit, ordering=sym.ordering,
-        alloc=dict(p=alloc(prog.p), m=alloc(prog.m), nsoc=alloc(len(soc)),
+        defaults=defaults, lit=lit, ordering=sym.ordering, statuses=STATUSES, causes=CAUSES,
+        setting_rows=SETTINGS,
+        alloc=dict(p=alloc(prog.p), m=alloc(prog.m), num_soc=alloc(len(soc)),
                    nnz_L=alloc(sym.nnz_L), nnz_A=alloc(prog.A.nnz), nnz_G=alloc(prog.G.nnz),
                    nnz_zoff=alloc(nnz_zoff), nbase=alloc(len(aff["base_idx"])),
                    nprow=alloc(len(aff["prow_idx"])), npcoef=alloc(len(aff["pcol"]))),
@@ -301,7 +365,7 @@ def _row_pattern(sym: KKTSymbolic, kern) -> dict:
     sweep (all rows without a stage kernel; with one, those before and after
     its periodic range), as const arrays: r_ptr over those rows (the rows
     after the range at offset r_skip = rows skipped), r_col the column of
-    each entry, r_pos its position in lx (column-wise). Computed here once
+    each entry, r_pos its position in l_val (column-wise). Computed here once
     instead of per solve: the transpose had cost about 1% of a solve's wall
     time and 83 KB of workspace at N = 50."""
     if kern is None:
@@ -325,19 +389,29 @@ def _row_pattern(sym: KKTSymbolic, kern) -> dict:
             "nrows_R": len(ptr) - 1, "r_skip": skip}
 
 
+def c_comment(text: str, indent: int, width: int = 96) -> str:
+    """``/* text */`` wrapped to ``width`` columns, continuation lines
+    indented by ``indent`` + 3 (the first line's indent is the caller's)."""
+    lines = textwrap.wrap(text, width - indent - 6) or [""]
+    pad = " " * (indent + 3)
+    return "/* " + ("\n" + pad).join(lines) + " */"
+
+
 def _env() -> jinja2.Environment:
-    return jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATE_DIR)),
-                              undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
-                              autoescape=False)
+    env = jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATE_DIR)),
+                             undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
+                             autoescape=False)
+    env.filters["ccomment"] = c_comment
+    return env
 
 
-def render(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
+def render(prog: ConeProgram, c_name: str = "pdg", precision: str = "double",
            settings: dict | None = None, ordering: str | None = None,
            stage_kernel: bool = True) -> dict:
     """C source of the solver for ``prog``: {filename: text}.
 
     ``settings`` overrides the defaults compiled into
-    ``{prefix}_socp_settings_default`` (keys as in :data:`DEFAULTS`).
+    ``{prefix}_socp_config_init`` (keys as in :data:`DEFAULTS`).
     ``ordering`` (default: by precision, :data:`DEFAULT_ORDERING`): "auto"
     (the stage-periodic ordering when the program's named variables have a
     time axis, its stage kernel applies and it costs at most
@@ -349,7 +423,8 @@ def render(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
     even when a periodic range exists (for comparison).
     Deterministic: the same input gives the same bytes.
     """
-    ctx, _, _ = _context(prog, prefix, precision, settings, ordering, stage_kernel)
+    ctx, _, _ = _context(prog, c_name, precision, settings, ordering, stage_kernel)
+    prefix = c_name
     env = _env()
     return {f"{prefix}_socp.h": env.get_template("socp.h.j2").render(**ctx),
             f"{prefix}_socp.c": env.get_template("socp.c.j2").render(**ctx)}
@@ -365,27 +440,27 @@ def _kernel_info(kern):
             "backward_stages": [b["first"], b["first"] + b["count"]]}
 
 
-def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
+def describe(prog: ConeProgram, c_name: str = "pdg", precision: str = "double",
              settings: dict | None = None, ordering: str | None = None) -> dict:
     """Sizes and defaults of the solver ``render`` would generate."""
-    ctx, sym, defaults = _context(prog, prefix, precision, settings, ordering)
+    ctx, sym, defaults = _context(prog, c_name, precision, settings, ordering)
     rb = 4 if precision == "single" else 8
     a = ctx["alloc"]
     dim, n, p, m = sym.dim, prog.n, a["p"], a["m"]
-    nsoc = a["nsoc"]
+    num_soc = a["num_soc"]
     # the members of {prefix}_socp_work, as declared in socp.h.j2
     reals = (ctx["ndata"] + n + p + 2 * m + 2         # data, x, y, z, s, tau, kappa
-             + 2 * m + 10 * nsoc                     # lambda, ntw, eta, rw, geo_s, geo_z
-             + sym.nnz_kkt + a["nnz_L"] + 2 * dim     # kkt, lx, dinv, scat
+             + 2 * m + 10 * num_soc                  # lambda, ntw, eta, rw, geo_s, geo_z
+             + sym.nnz_kkt + a["nnz_L"] + 2 * dim     # kkt, l_val, pivot_inv, scat
              + 6 * dim                               # rhs, rhs2, u0, u1, res, corr
              + 2 * n + 2 * p + 7 * m                 # rx, ry, rz, dx, dy, dz, ds, dsa, dza, t1, t2
-             + 5                                     # dtau, dkappa, data_norm, reg, refine_floor
+             + 5                                     # dtau, dkappa, data_norm, shift, correction_floor
              + n + p + 2 * m + 2                     # xb, yb, zb, sb, taub, kappab
-             + n + p + 2 * m + 7                     # xr, yr, zr, sr, taur .. gap_r, best_merit
-             + 5)                                    # objective, pres, dres, gap, mu
+             + n + p + 2 * m + 7                     # x_coarse .. duality_gap_coarse, best_merit
+             + 5)                                    # objective, primal_residual .. mu
     ints = 10                                       # counters
     return {
-        "precision": precision, "prefix": prefix,
+        "precision": precision, "c_name": c_name,
         "n_params": prog.n_params, "n": prog.n, "p": prog.p, "m": prog.m,
         "nonneg": prog.nonneg, "soc": len(prog.soc),
         "soc_sizes": sorted(set(int(q) for q in prog.soc)),
@@ -393,6 +468,6 @@ def describe(prog: ConeProgram, prefix: str = "pdg", precision: str = "double",
         "ordering": sym.ordering, "L_nnz_by_ordering": dict(sym.nnz_L_tried),
         "stage_kernel": _kernel_info(sym.kernel),
         "workspace_bytes": int(reals * rb + ints * 4),
-        "max_iter_cap": MAX_ITER_CAP,
+        "iterations_hard_limit": ITERATIONS_HARD_LIMIT,
         "settings": dict(defaults),
     }

@@ -18,19 +18,26 @@ class NativeBackend:
     def generate(self, dp, ctx: dict, render) -> BackendOutput:
         prog = ctx["prog"]
         prefix, precision = ctx["prefix"], ctx["precision"]
-        files = native.render(prog, prefix=prefix, precision=precision)
-        info = native.describe(prog, prefix=prefix, precision=precision)
+        files = native.render(prog, c_name=prefix, precision=precision)
+        info = native.describe(prog, c_name=prefix, precision=precision)
         offsets = {name: off for name, (off, _shape) in prog.variables.items()}
         adapter = render("backend_native.c.j2", dict(ctx, offsets=offsets, nvar=prog.n))
         settings = info["settings"]
-        rows = [(f"`socp.{k}`", repr(v), "native solver setting (see include of solver/"
-                 f"{prefix}_socp.h)") for k, v in settings.items()]
+        def cell(text):                          # a Markdown table cell
+            return text.replace("|", "\\|")
+
+        rows = [(f"`{prefix}_socp_config.{name}`", repr(settings[name]), cell(meaning))
+                for name, _ctype, meaning in native.SETTINGS]
+        status_rows = [(f"`{prefix.upper()}_SOCP_{name}`", value, cell(meaning))
+                       for value, name, meaning in native.STATUSES]
+        cause_rows = [(f"`{prefix.upper()}_SOCP_CAUSE_{name}`", value, cell(meaning))
+                      for value, name, meaning in native.CAUSES]
         real = 4 if precision == "single" else 8
         return BackendOutput(
             files={f"solver/{name}": text.encode() for name, text in files.items()},
             adapter_c=adapter,
             backend_header=f"{prefix}_socp.h",
-            backend_fields=[f"{prefix}_socp_work socp;", f"{prefix}_socp_settings settings;",
+            backend_fields=[f"{prefix}_socp_work socp;", f"{prefix}_socp_config config;",
                             f"{prefix}_real params[{prog.n_params}];"],
             solver_sources=[f"solver/{name}" for name in sorted(files) if name.endswith(".c")],
             include_dirs=["solver"], defines=[], solver_strict=True, reentrant=True,
@@ -45,4 +52,5 @@ class NativeBackend:
                            f"(KKT {info['kkt_dim']} x {info['kkt_dim']}, {info['kkt_nnz']} "
                            f"nonzeros, L {info['L_nnz']} nonzeros). No heap, no recursion, "
                            f"all state in the caller's workspace."),
-                  "settings_rows": rows, "describe": info})
+                  "settings_rows": rows, "status_rows": status_rows, "cause_rows": cause_rows,
+                  "describe": info})

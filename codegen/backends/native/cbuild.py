@@ -25,9 +25,10 @@ def write_sources(files: dict, outdir) -> Path:
     return outdir
 
 
-def compile_shared(files: dict, outdir, prefix: str = "pdg", opt: str = "-O2",
+def compile_shared(files: dict, outdir, c_name: str = "pdg", opt: str = "-O2",
                    extra_flags=()) -> Path:
-    """gcc the solver into ``outdir/lib{prefix}_socp.so``; returns its path."""
+    """gcc the solver into ``outdir/lib{c_name}_socp.so``; returns its path."""
+    prefix = c_name
     outdir = write_sources(files, outdir)
     lib = outdir / f"lib{prefix}_socp.so"
     cmd = ["gcc", opt, *STRICT_FLAGS, "-fPIC", "-shared", *extra_flags,
@@ -39,7 +40,8 @@ def compile_shared(files: dict, outdir, prefix: str = "pdg", opt: str = "-O2",
 class NativeSolver:
     """Loads a compiled solver; ``solve(params)`` returns a dict of results."""
 
-    def __init__(self, lib_path, header_path, prefix: str = "pdg"):
+    def __init__(self, lib_path, header_path, c_name: str = "pdg"):
+        prefix = c_name
         pre = subprocess.run(["gcc", "-E", "-P", str(header_path)], check=True,
                              capture_output=True, text=True).stdout
         self.ffi = cffi.FFI()
@@ -49,13 +51,13 @@ class NativeSolver:
         self.real = "float" if "typedef float" in pre else "double"
         self.dtype = np.float32 if self.real == "float" else np.float64
         self._solve = getattr(self.lib, f"{prefix}_socp_solve")
-        self._default = getattr(self.lib, f"{prefix}_socp_settings_default")
+        self._default = getattr(self.lib, f"{prefix}_socp_config_init")
 
     def new_work(self):
         return self.ffi.new(f"{self.prefix}_socp_work *")
 
     def settings(self, **overrides):
-        st = self.ffi.new(f"{self.prefix}_socp_settings *")
+        st = self.ffi.new(f"{self.prefix}_socp_config *")
         self._default(st)
         for key, val in overrides.items():
             setattr(st, key, val)
@@ -71,10 +73,11 @@ class NativeSolver:
         pp = self.ffi.cast(f"{self.real} *", self.ffi.from_buffer(params))
         status = self._solve(w, pp, settings if settings is not None else self.ffi.NULL)
         out = {"status": int(status), "objective": float(w.objective),
-               "iterations": int(w.iterations), "pres": float(w.pres), "dres": float(w.dres),
-               "gap": float(w.gap), "dynamic_reg_count": int(w.dynamic_reg_count),
-               "numerical_cause": int(w.numerical_cause),
-               "refine_count": int(w.refine_count), "work": w}
+               "iterations": int(w.iterations), "primal_residual": float(w.primal_residual),
+               "dual_residual": float(w.dual_residual), "duality_gap": float(w.duality_gap),
+               "pivots_replaced": int(w.pivots_replaced),
+               "breakdown_cause": int(w.breakdown_cause),
+               "correction_passes": int(w.correction_passes), "work": w}
         if sizes is not None:
             n, p, m = sizes
             out["x"] = self.vec(w, "x", n)

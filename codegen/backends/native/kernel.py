@@ -3,7 +3,7 @@ interior stage of a stage-periodic KKT ordering (codegen.backends.native.periodi
 
 For each stage s the work of the up-looking LDL' (and of the two sweeps) is
 written down as a list of operations on absolute indices; subtracting the
-stage's base offsets (first row k0, first position of its columns in lx,
+stage's base offsets (first row k0, first position of its columns in l_val,
 of its rows in the row-wise order of L, of its columns in the KKT values)
 gives its *relative* program.  The stages whose relative programs are identical, and whose bases
 advance by the same amounts, form the periodic range; the C emitted here
@@ -16,7 +16,7 @@ The factor step of row k (pattern of row k of L: j_1 < j_2 < ...):
 which is what the generic scatter loop computes, in the same order of
 additions; with the forward sweeps of the two right-hand sides and the
 regularisation of the pivot, as the generic rows do.  The forward sweeps of
-the kernel's rows (forward_stage) read lx at positions known at generation
+the kernel's rows (forward_stage) read l_val at positions known at generation
 time.  The backward sweeps subtract a column's entries rows descending, as
 the generic backward loops do: the entries of t computed last come last in
 the chain (a latency-bound sweep otherwise waits for the whole chain per
@@ -35,11 +35,11 @@ class StageKernel:
     first: int          # first stage of the periodic range
     count: int          # number of stages in it (>= 2)
     rows: tuple         # (k0 of the first stage, P): rows per stage
-    lx: tuple           # (base, Q) of lx (column-wise positions)
+    l_val: tuple        # (base, Q) of l_val (column-wise positions)
     lr: tuple           # (base, Q) of the row-wise order of L (r_pos)
     kkt: tuple          # (base, R) of the KKT values
     factor_ops: list    # relative program of one stage (see _factor_program)
-    bwd: dict           # backward sweep: {"first", "count", "rows", "lx", "ops"}
+    bwd: dict           # backward sweep: {"first", "count", "rows", "l_val", "ops"}
 
     @property
     def row_begin(self) -> int:
@@ -144,15 +144,15 @@ def find_kernel(stage_of_pos: np.ndarray, Kp, Ki, Lp, Li, Rp, Rj, sign,
         return None
     bfirst, bcount = _longest_run(bprogs, bbases)
     if bcount < min_stages or not any(e for _, e in bprogs[bfirst]):
-        bwd = {"first": 0, "count": 0, "rows": (0, P), "lx": (0, 0), "ops": ()}
+        bwd = {"first": 0, "count": 0, "rows": (0, P), "l_val": (0, 0), "ops": ()}
     else:
         b0 = bbases[bfirst]
         b1 = bbases[bfirst + 1]
         bwd = {"first": bfirst, "count": bcount, "rows": (b0[0], P),
-               "lx": (b0[1], b1[1] - b0[1]), "ops": bprogs[bfirst]}
+               "l_val": (b0[1], b1[1] - b0[1]), "ops": bprogs[bfirst]}
     f0, f1 = fbases[first], fbases[first + 1]
     return StageKernel(first=first, count=count, rows=(f0[0], P),
-                       lx=(f0[1], f1[1] - f0[1]), lr=(f0[2], f1[2] - f0[2]),
+                       l_val=(f0[1], f1[1] - f0[1]), lr=(f0[2], f1[2] - f0[2]),
                        kkt=(f0[3], f1[3] - f0[3]), factor_ops=list(fprogs[first]), bwd=bwd)
 
 
@@ -182,34 +182,34 @@ def _c_factor(ops) -> str:
         out.append(f"    f2 = w->rhs2[perm[k0 + {c}]];")
         for a, (init, upd, jr, qk, tr) in enumerate(entries):
             first = f"kk[{init}]" if init is not None else "R(0)"
-            out.extend(_stmt(f"yv[{a}]", first, [f"lx[{q}] * yv[{ia}]" for q, ia in upd]))
-            out.append(f"    l = yv[{a}] * dinv[{jr}]; d -= l * yv[{a}]; lx[{qk}] = l;")
+            out.extend(_stmt(f"yv[{a}]", first, [f"lv[{q}] * yv[{ia}]" for q, ia in upd]))
+            out.append(f"    l = yv[{a}] * pinv[{jr}]; d -= l * yv[{a}]; lv[{qk}] = l;")
             out.append(f"    f1 -= l * y1[{jr}]; f2 -= l * y2[{jr}];")
         sg = "R(1)" if sgn > 0 else "R(-1)"
         out.append(f"    y1[{c}] = f1; y2[{c}] = f2;")
         out.append(f"    if (pivot_fix(w, st, &d, {sg}) != 0) {{")
         out.append("        return -1;")
         out.append("    }")
-        out.append(f"    dinv[{c}] = R(1) / d;")
+        out.append(f"    pinv[{c}] = R(1) / d;")
     return "\n".join(out)
 
 
 def _c_forward(ops) -> str:
     """Forward sweep t = L^{-1} b(perm) of one stage, from the factor program
-    (row k: the entries of row k of L, columns ascending, read from lx: the
+    (row k: the entries of row k of L, columns ascending, read from l_val: the
     kernel knows where each sits, so no row-wise pattern is read)."""
     out = []
     for c, _sgn, _kd, entries in ops:
         out.extend(_stmt(f"t[{c}]", f"b[perm[k0 + {c}]]",
-                         [f"lx[{qk}] * t[{jr}]" for (_i, _u, jr, qk, _t) in entries]))
+                         [f"lv[{qk}] * t[{jr}]" for (_i, _u, jr, qk, _t) in entries]))
     return "\n".join(out)
 
 
 def _backward_stmt(vec: str, c: int, ents) -> list:
-    """``vec[c] = vec[c] * dinv[c] - ...`` with the column's rows descending
+    """``vec[c] = vec[c] * pinv[c] - ...`` with the column's rows descending
     (the entries computed last come last in the chain)."""
-    return _stmt(f"{vec}[{c}]", f"{vec}[{c}] * dinv[{c}]",
-                 [f"lx[{q}] * {vec}[{ir}]" for q, ir in reversed(ents)])
+    return _stmt(f"{vec}[{c}]", f"{vec}[{c}] * pinv[{c}]",
+                 [f"lv[{q}] * {vec}[{ir}]" for q, ir in reversed(ents)])
 
 
 def _c_backward(ops) -> str:
@@ -238,12 +238,12 @@ def context(kern: StageKernel | None) -> dict:
         "stage_kernel": True,
         "sk_first": kern.first, "sk_count": kern.count,
         "sk_k0": kern.rows[0], "sk_p": kern.rows[1],
-        "sk_l0": kern.lx[0], "sk_lq": kern.lx[1],
+        "sk_l0": kern.l_val[0], "sk_lq": kern.l_val[1],
         "sk_q0": kern.kkt[0], "sk_qr": kern.kkt[1],
         "sk_factor": _c_factor(kern.factor_ops),
         "sk_forward": _c_forward(kern.factor_ops),
-        "sk_bfirst": b["first"], "sk_bcount": b["count"], "sk_bk0": b["rows"][0], "sk_bl0": b["lx"][0],
-        "sk_blq": b["lx"][1],
+        "sk_bfirst": b["first"], "sk_bcount": b["count"], "sk_bk0": b["rows"][0], "sk_bl0": b["l_val"][0],
+        "sk_blq": b["l_val"][1],
         "sk_backward": _c_backward(b["ops"]) if b["count"] else "",
         "sk_backward2": _c_backward2(b["ops"]) if b["count"] else "",
     }

@@ -23,15 +23,17 @@ from pathlib import Path
 import numpy as np
 import scipy.sparse as sp
 
-from codegen.model.canonical import extract, flat_parameters
+from codegen.model.canonical import CLARABEL_TIGHT, extract, flat_parameters
 from codegen.model.problem import DescentProblem, time_of_flight_bracket
 from codegen.model.vehicle import load_vehicle
 from codegen.fsutil import REPO_DIR
-from codegen.backends.native import describe, render
+from codegen.backends.native import (CONVERGED, INFEASIBLE_CERTIFIED, UNBOUNDED_CERTIFIED, describe,
+                                     render)
 from codegen.backends.native.cbuild import NativeSolver, compile_shared
 
 DEMO = REPO_DIR / "examples" / "demo_vehicle.toml"
-STATUS = {"Solved": 0, "PrimalInfeasible": 1, "DualInfeasible": 2}
+STATUS = {"Solved": CONVERGED, "PrimalInfeasible": INFEASIBLE_CERTIFIED,
+          "DualInfeasible": UNBOUNDED_CERTIFIED}
 
 
 def clarabel_reference(prog, params):
@@ -43,8 +45,7 @@ def clarabel_reference(prog, params):
     cones += [clarabel.SecondOrderConeT(int(q)) for q in prog.soc]
     st = clarabel.DefaultSettings()
     st.verbose = False
-    for key, val in dict(tol_gap_abs=1e-9, tol_gap_rel=1e-9, tol_feas=1e-9, tol_infeas_abs=1e-9,
-                         tol_infeas_rel=1e-9, max_iter=200).items():
+    for key, val in CLARABEL_TIGHT.items():      # the reference's own settings
         setattr(st, key, val)
     sol = clarabel.DefaultSolver(sp.csc_matrix((prog.n, prog.n)), data["c"], a_all, b_all,
                                  cones, st).solve()
@@ -95,8 +96,8 @@ def measure(horizon: int, precision: str, cases: int, repeats: int, workdir: Pat
         total += 1
         r = solver.solve(params)
         agree += r["status"] == STATUS[ref]
-        if STATUS[ref] == 0:
-            if r["status"] == 0:
+        if STATUS[ref] == CONVERGED:
+            if r["status"] == CONVERGED:
                 worst_it = max(worst_it, r["iterations"])
                 worst_err = max(worst_err, abs(r["objective"] - ref_obj) / max(1.0, abs(ref_obj)))
             else:

@@ -2,7 +2,7 @@
 
 From a generated NATIVE tree (the backend meant to fly: heap-free, reentrant,
 C99) this writes a directory and a ``.tar.gz`` of it holding the generated
-sources, build files (make, CMake), the example, test vectors with a C runner
+sources, build files (make, CMake), the plan-once program, test vectors with a C runner
 (:mod:`codegen.verify.vectors`), and a verification record (Markdown and HTML). The
 target checks run here, on a scratch copy of the package, with the package's
 own Makefile where one exists:

@@ -62,7 +62,7 @@ def _probe_sizes(work: Path, prefix: str, cc: str, flags: str, include_dirs, nm:
 
 def _m7_build(work: Path, manifest: dict, flags: str, label: str) -> dict:
     """Library for the Cortex-M7 (strict flags as errors), sizes and stack."""
-    prefix = manifest["prefix"]
+    prefix = manifest["c_name"]
     b = manifest["build"]
     incs = [f"-I{d}" for d in b["include_dirs"]]
     out_dir = work / f"m7-{label}"
@@ -113,7 +113,7 @@ def _m7_build(work: Path, manifest: dict, flags: str, label: str) -> dict:
 def run_checks(pkg_files: dict, manifest: dict, tree_dir, vector_count: int, say) -> Checks:
     """All target checks, in a scratch copy of the package (removed afterwards)."""
     ck = Checks()
-    prefix = manifest["prefix"]
+    prefix = manifest["c_name"]
     tools = {t: _tool_version(t) for t in ("cc", "arm-none-eabi-gcc", "arm-linux-gnueabihf-gcc",
                                            "qemu-arm", "cppcheck", "gcov", "cmake")}
     ck.tools = tools
@@ -140,7 +140,7 @@ def run_checks(pkg_files: dict, manifest: dict, tree_dir, vector_count: int, say
         if have["cppcheck"]:
             code, out = _run(["cppcheck", *CPPCHECK_FLAGS.split(),
                               "--template={file}:{line}:{column}: {severity}: {message} [{id}]",
-                              *incs, "src", "solver", "example", "test"], cwd=work)
+                              *incs, "src", "solver", "app", "test"], cwd=work)
             findings = [ln.strip() for ln in out.splitlines() if re.match(r"^\S+:\d+:\d+: ", ln)]
             ck.cppcheck = {"findings": [_scrub(f, work) for f in findings], "exit_code": code}
         else:
@@ -193,11 +193,11 @@ def run_checks(pkg_files: dict, manifest: dict, tree_dir, vector_count: int, say
                 from codegen.emit import generate
                 single_dir = scratch / "single"
                 generate(Path(tree_dir) / "vehicle.toml", manifest["horizon"], single_dir,
-                         backend="native", prefix=prefix, precision="single")
+                         backend="native", c_name=prefix, precision="single")
                 sman = read_manifest(single_dir)
                 ck.m7["single"] = _m7_build(single_dir, sman, M7_SP_FLAGS, "sp")
                 ck.m7["single"]["tree"] = (f"pdgc {__version__} generate vehicle.toml --horizon "
-                                           f"{manifest['horizon']} --backend native --prefix "
+                                           f"{manifest['horizon']} --backend native --c-name "
                                            f"{prefix} --precision single")
             else:
                 ck.m7["single"] = _m7_build(work, manifest, M7_SP_FLAGS, "sp")

@@ -98,9 +98,9 @@ def _objects(manifest: dict, prefix: str, failing: set) -> tuple:
         return Obj(src, Path(src).stem + ".o", flags, cm)
 
     lib = [mk(s) for s in b["guidance_sources"] + b["solver_sources"]]
-    example = mk(f"example/{prefix}_example.c")
+    program = mk(f"app/{prefix}_plan_once.c")
     runner = [mk(f"test/{prefix}_test_runner.c"), mk(f"test/{prefix}_vectors.c")]
-    return lib, example, runner
+    return lib, program, runner
 
 
 def _vector_rows(vectors) -> list:
@@ -112,8 +112,8 @@ def _vector_rows(vectors) -> list:
             "velocity_mps": [_c(x) for x in v.velocity_mps],
             "mass_kg": _c(v.mass_kg), "time_of_flight_s": _c(v.time_of_flight_s),
             "target_m": [_c(x) for x in v.target_m],
-            "set_max_iterations": int(v.max_iterations is not None),
-            "max_iterations": int(v.max_iterations or 0),
+            "set_iterations_per_solve_max": int(v.iterations_per_solve_max is not None),
+            "iterations_per_solve_max": int(v.iterations_per_solve_max or 0),
             "set_tof_tolerance": int(v.tof_tolerance_s is not None),
             "tof_tolerance_s": _c(v.tof_tolerance_s or 0.0),
             "null_workspace": int(v.null_workspace), "status": v.status,
@@ -129,9 +129,9 @@ def _vector_rows(vectors) -> list:
 def package_files(tree_dir, manifest, vehicle, vectors, tol, failing=frozenset()) -> dict:
     """Every file of the package but the record and MANIFEST.sha256: path -> bytes."""
     tree_dir = Path(tree_dir)
-    prefix, n = manifest["prefix"], manifest["horizon"]
+    prefix, n = manifest["c_name"], manifest["horizon"]
     env = environment()
-    lib, example, runner = _objects(manifest, prefix, set(failing))
+    lib, program, runner = _objects(manifest, prefix, set(failing))
     headers = sorted(p for p in manifest["files"] if p.endswith(".h"))
     headers += [f"test/{prefix}_vectors.h"]
     ctx = {"prefix": prefix, "PREFIX": prefix.upper(), "N": n, "version": __version__,
@@ -140,10 +140,10 @@ def package_files(tree_dir, manifest, vehicle, vectors, tol, failing=frozenset()
            "strict_flags": STRICT_FLAGS, "relaxed_flags": RELAXED_FLAGS,
            "relaxed_used": bool(failing), "include_dirs": manifest["build"]["include_dirs"] + ["test"],
            "defines": manifest["build"]["defines"], "headers": headers,
-           "lib_objects": lib, "example": example, "example_object": example.obj,
+           "lib_objects": lib, "program": program, "program_object": program.obj,
            "runner_objects": runner, "m7_dp_flags": M7_DP_FLAGS,
            "cppcheck_flags": CPPCHECK_FLAGS,
-           "cppcheck_paths": ["src", "solver", "example", "test"]}
+           "cppcheck_paths": ["src", "solver", "app", "test"]}
 
     def render(name):
         return env.get_template(f"handoff/{name}").render(**ctx).encode()

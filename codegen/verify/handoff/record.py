@@ -19,14 +19,14 @@ from codegen.verify.handoff.tools import _sha256
 
 def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, campaign,
                     files: dict, solver_check: dict | None = None) -> list:
-    prefix, n = manifest["prefix"], manifest["horizon"]
+    prefix, n = manifest["c_name"], manifest["horizon"]
     sec = []
 
     sec.append({"title": "Caution", "blocks": [_text(f"**{caution_text(vehicle.name)}**")]})
 
     ident = [("vehicle", vehicle.name), ("vehicle file sha256", manifest["vehicle"]["sha256"]),
              ("horizon N (intervals)", n), ("precision", manifest["precision"]),
-             ("backend", "native (pdgc interior-point SOCP solver)"), ("C prefix", prefix),
+             ("backend", "native (pdgc interior-point SOCP solver)"), ("C name", prefix),
              ("reentrant", manifest.get("reentrant")), ("heap-free", manifest.get("heap_free")),
              ("generator", f"pdgc {manifest.get('version')}"),
              ("problem size", ", ".join(f"{k} {v}" for k, v in sorted(manifest["problem"].items()))),
@@ -47,9 +47,9 @@ def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, camp
         _table(("key", "value", "meaning"), vrows)]})
 
     opts = manifest.get("options", {})
-    srows = [("max_iterations (default / cap)",
-              f"{opts.get('max_iterations_default')} / {opts.get('max_iterations_cap')}",
-              f"`{prefix}_settings.max_iterations`, per solve"),
+    srows = [("iterations_per_solve_max (default / cap)",
+              f"{opts.get('iterations_per_solve_max_default')} / {opts.get('iterations_per_solve_max_limit')}",
+              f"`{prefix}_guidance_config.iterations_per_solve_max`, per solve"),
              ("tof_tolerance_s (default)", opts.get("tof_tolerance_s"),
               "time-of-flight search stops when its bracket is shorter"),
              ("time-of-flight search",

@@ -77,7 +77,7 @@ def _check_sections(ck: Checks, prefix: str) -> list:
     sec.append({"title": "Strict build", "blocks": blocks})
 
     if ck.cppcheck is not None:
-        b = [_text(f"`cppcheck {CPPCHECK_FLAGS}` over src, solver, example and test: "
+        b = [_text(f"`cppcheck {CPPCHECK_FLAGS}` over src, solver, app and test: "
                    f"{len(ck.cppcheck['findings'])} findings.")]
         if ck.cppcheck["findings"]:
             b.append(_code("\n".join(ck.cppcheck["findings"])))

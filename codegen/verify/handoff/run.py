@@ -49,7 +49,7 @@ def handoff(tree_dir, out_dir, campaign=None, checks: bool = True, progress=None
         failing = {f for f, ok, _ in ck.strict if not ok}
         if failing:
             files = package_files(tree_dir, manifest, vehicle, vectors, tol, failing)
-    title = f"Verification record: {manifest['prefix']} guidance for {vehicle.name}, N = {manifest['horizon']}"
+    title = f"Verification record: {manifest['c_name']} guidance for {vehicle.name}, N = {manifest['horizon']}"
     intro = [f"Hand-off package written by pdgc {__version__} from a generated native tree. "
              "Every figure below was produced by the checks named with it; nothing here "
              "needs Python to read or to reproduce (see README.md for the make targets). "
@@ -60,7 +60,7 @@ def handoff(tree_dir, out_dir, campaign=None, checks: bool = True, progress=None
     result = {
         "format": RECORD_FORMAT, "pdgc_version": __version__, "vehicle": vehicle.name,
         "horizon": manifest["horizon"], "precision": manifest["precision"],
-        "prefix": manifest["prefix"], "vectors": len(vectors), "tolerances": tol,
+        "prefix": manifest["c_name"], "vectors": len(vectors), "tolerances": tol,
         "environment": versions.installed(),
         "tree_environment": manifest.get("environment"),
         "checks_run": checks,

@@ -38,11 +38,11 @@ typedef struct {
     double target_m[3];     /**< landing target */
 } pdg_input;
 
-/** Settings; fill with pdg_settings_default() then change what you need. */
+/** Settings; fill with pdg_guidance_config_init() then change what you need. */
 typedef struct {
-    int max_iterations;       /**< per solve, 1..200 (default 100) */
-    double tof_tolerance_s;   /**< time-of-flight search stops when the bracket is shorter (default 0.05) */
-} pdg_settings;
+    int iterations_per_solve_max; /**< per solve, 1..200 (default 100) */
+    double tof_tolerance_s;       /**< time-of-flight search stops when the bracket is shorter (default 0.05) */
+} pdg_guidance_config;
 
 /** The plan. Arrays by node k = 0..N (or interval k = 0..N-1). */
 typedef struct {
@@ -88,8 +88,8 @@ typedef struct {
     double mid_c[65];
 } pdg_workspace;
 
-/** Default settings. */
-void pdg_settings_default(pdg_settings *settings);
+/** Fill *settings with the defaults. */
+void pdg_guidance_config_init(pdg_guidance_config *settings);
 
 /**
  * Plan a least-fuel descent from `input` and write it to `plan`.
@@ -103,7 +103,7 @@ void pdg_settings_default(pdg_settings *settings);
  * Returns plan->status. `settings` may be NULL for the defaults.
  */
 pdg_status pdg_plan_descent(pdg_workspace *work,
-    const pdg_input *input, const pdg_settings *settings,
+    const pdg_input *input, const pdg_guidance_config *settings,
     pdg_plan *plan);
 
 /** Name of a status, for logs. */

@@ -25,16 +25,16 @@ typedef pdg_real real;
 /* Index type of the constant pattern arrays: the narrowest that holds them. */
 typedef unsigned short idx_t;
 
-#define NVAR PDG_SOCP_NVAR
-#define NEQ PDG_SOCP_NEQ
-#define NCON PDG_SOCP_NCON
-#define NLIN PDG_SOCP_NNONNEG
-#define NSOC PDG_SOCP_NSOC
-#define NKKT PDG_SOCP_NKKT
+#define NVAR PDG_SOCP_NUM_VARIABLES
+#define NEQ PDG_SOCP_NUM_EQUALITIES
+#define NCON PDG_SOCP_NUM_CONE_ROWS
+#define NLIN PDG_SOCP_NUM_NONNEG_ROWS
+#define NUM_SOC PDG_SOCP_NUM_SECOND_ORDER_CONES
+#define NKKT PDG_SOCP_KKT_DIM
 #define KKT_NNZ PDG_SOCP_KKT_NNZ
 #define L_NNZ PDG_SOCP_L_NNZ
-#define NDATA PDG_SOCP_NDATA
-#define MAX_ITER_CAP PDG_SOCP_MAX_ITER_CAP
+#define NDATA PDG_SOCP_DATA_LEN
+#define ITERATIONS_HARD_LIMIT PDG_SOCP_ITERATIONS_HARD_LIMIT
 #define OFF_C PDG_SOCP_OFF_C
 #define OFF_D PDG_SOCP_OFF_D
 #define OFF_B PDG_SOCP_OFF_B
@@ -50,29 +50,29 @@ typedef unsigned short idx_t;
 /* Refinement steps allowed for the predictor solve: none in double (the
  * predictor only sets the centring); in single its plain solve is too
  * coarse even for that. */
-#define PREDICTOR_REFINE 0
+#define PREDICTOR_CORRECTIONS 0
 /* The tau solve K u1 = [-c; b; h] gets one refinement step in double: with
  * none, infeasible states took up to 39 iterations instead of 23 (the
  * certificate needs dtau right as tau -> 0); more than one changed no
  * count but cost 4% of the instructions (demo N = 50, 1000 checked
  * cases). */
-#define TAU_REFINE 1
-/* The progress guard's window: a solve ends (SOLVED_REDUCED if it has a
- * fallback, else NUMERICAL with cause 6) when in this many iterations no
+#define TAU_CORRECTIONS 1
+/* The progress guard's window: a solve ends (CONVERGED_COARSE if it has a
+ * fallback, else BREAKDOWN with cause NO_PROGRESS) when in this many iterations no
  * verdict (optimal, infeasible, unbounded) came twice as close to its
  * tolerance. Converging solves gain a factor 2 to 20 per iteration; 10 and
  * 15 cut short an unbounded test instance whose certificate sat still for
  * a dozen iterations and then converged (tests/test_native_solver.py). */
 #define STALL_ITERS 20
-/* Safety factor on the static-regularisation estimate of a KKT residual
- * (rounding in the factorisation comes on top of reg |x|). */
-#define REFINE_SKIP_MARGIN R(100)
-/* On a breakdown the static regularisation is multiplied by REG_RAISE, up
- * to REG_RAISE_CAP times the setting. */
-#define REG_RAISE R(100.0)
-#define REG_RAISE_CAP R(10000.0)
+/* Safety factor on the static-shift estimate of a KKT residual
+ * (rounding in the factorisation comes on top of shift |x|). */
+#define CORRECTION_SKIP_MARGIN R(100)
+/* On a breakdown the static shift is multiplied by SHIFT_RAISE, up
+ * to SHIFT_RAISE_CAP times the setting. */
+#define SHIFT_RAISE R(100.0)
+#define SHIFT_RAISE_CAP R(10000.0)
 /* Refinement stops once the KKT residual is below this times mu. */
-#define REFINE_MU_FACTOR R(0.01)
+#define CORRECTION_MU_FACTOR R(0.01)
 #define R(v) ((real)(v))
 /* An element-wise loop over [0, n) in two passes: BULK(n), the largest
  * multiple of the SIMD width (16 bytes: 2 reals) up to n, then the rest.
@@ -90,7 +90,7 @@ typedef unsigned short idx_t;
  * divisions cost more wall time than their share of the instructions
  * (about 5600 an iteration at N = 50 went this way, 2 to 8% of a solve). In
  * single DEN(y) is y and OVER divides, as written: the extra rounding of a
- * reciprocal cost the single-precision demo a state (SOLVED_REDUCED). */
+ * reciprocal cost the single-precision demo a state (CONVERGED_COARSE). */
 
 #define DEN(y) (R(1) / (y))
 #define OVER(x, d) ((x) * (d))
@@ -2120,7 +2120,7 @@ static const idx_t l_row[8497] = {
 /* Row-wise pattern of L (columns ascending in each row) for the rows the
  * generic loops handle (those before and after the stage kernel's range;
  * the rows after it sit at r_ptr index k - R_SKIP): r_col[t] is the
- * column of entry t, r_pos[t] its position in lx. */
+ * column of entry t, r_pos[t] its position in l_val. */
 #define R_SKIP 1824
 static const idx_t r_ptr[94] = {
 0,0,0,0,0,0,0,0,0,1,2,3,4,5,6,6,7,7,8,10,15,15,15,15,
@@ -2159,22 +2159,22 @@ static const idx_t r_pos[289] = {
 8496
 };
 
-/* ---- settings ------------------------------------------------------------- */
-void pdg_socp_settings_default(pdg_socp_settings *s)
+/* ---- run-time settings ----------------------------------------------------- */
+void pdg_socp_config_init(pdg_socp_config *s)
 {
-    s->tol_gap_abs = 1e-08;
-    s->tol_gap_rel = 1e-08;
-    s->tol_feas = 1e-08;
-    s->tol_infeas = 1e-08;
-    s->tol_feas_reduced = 1e-06;
-    s->tol_gap_reduced = 1e-07;
-    s->max_iter = 100;
-    s->static_reg = 1e-08;
-    s->dynamic_reg_eps = 1e-13;
-    s->dynamic_reg_delta = 2e-07;
-    s->refine_steps = 5;
-    s->refine_tol = 1e-12;
-    s->step_fraction = 0.99;
+    s->gap_abs_stop = 1e-08;
+    s->gap_rel_stop = 1e-08;
+    s->residual_stop = 1e-08;
+    s->certificate_stop = 1e-08;
+    s->residual_stop_coarse = 1e-06;
+    s->gap_stop_coarse = 1e-07;
+    s->iteration_cap = 100;
+    s->kkt_shift = 1e-08;
+    s->pivot_floor = 1e-13;
+    s->pivot_replacement = 2e-07;
+    s->correction_passes_max = 5;
+    s->correction_stop = 1e-12;
+    s->boundary_step_share = 0.99;
 }
 
 /* ---- small vector helpers -------------------------------------------------- */
@@ -2228,7 +2228,7 @@ static real norm_inf(const real *a, int len)
 }
 
 /* ---- parameters to data ---------------------------------------------------- */
-static void load_data(pdg_socp_work *w, const real *params)
+static void params_to_data(pdg_socp_work *w, const real *params)
 {
     int i, r, k;
     EACH(i, NDATA) {
@@ -2290,7 +2290,7 @@ static int nt_scaling(pdg_socp_work *w)
         w->ntw[i] = SQRT(w->s[i] / w->z[i]);
         w->lambda[i] = SQRT(w->s[i] * w->z[i]);
     }
-    for (c = 0; c < NSOC; ++c) {
+    for (c = 0; c < NUM_SOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
         const real *s = w->s + o;
@@ -2380,7 +2380,7 @@ static void apply_w(const pdg_socp_work *w, const real *v, real *out)
     EACH(i, NLIN) {
         out[i] = v[i] * w->ntw[i];
     }
-    for (c = 0; c < NSOC; ++c) {
+    for (c = 0; c < NUM_SOC; ++c) {
         const int o = soc_start[c];
         cone_w(w->ntw + o, w->rw[c], w->eta[c], R(1), v + o, out + o, soc_size[c]);
     }
@@ -2393,7 +2393,7 @@ static void apply_w2(const pdg_socp_work *w, const real *v, real *out)
     EACH(i, NLIN) {
         out[i] = w->ntw[i] * w->ntw[i] * v[i];
     }
-    for (c = 0; c < NSOC; ++c) {
+    for (c = 0; c < NUM_SOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
         const real *wb = w->ntw + o;
@@ -2456,7 +2456,7 @@ static void corrector_terms(pdg_socp_work *w, real smu)
         dsa[i] = comp / lam[i];
         t1[i] = dsa[i] * w->ntw[i];
     }
-    for (c = 0; c < NSOC; ++c) {
+    for (c = 0; c < NUM_SOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
         cone_w(w->ntw + o, w->rw[c], R(1) / w->eta[c], R(-1), w->ds + o, dsa + o, q);
@@ -2487,7 +2487,7 @@ static real cone_step(const real *u, const real *d, real cap, const real *geo)
             a = -u[i] / d[i];
         }
     }
-    for (c = 0; c < NSOC; ++c) {
+    for (c = 0; c < NUM_SOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
         const real *g = geo + 4 * c;
@@ -2519,7 +2519,7 @@ static real cone_violation(const real *u)
             worst = -u[i];
         }
     }
-    for (c = 0; c < NSOC; ++c) {
+    for (c = 0; c < NUM_SOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
         real n1 = R(0);
@@ -2543,7 +2543,7 @@ static void cone_shift(real *u)
         EACH(i, NLIN) {
             u[i] += add;
         }
-        for (c = 0; c < NSOC; ++c) {
+        for (c = 0; c < NUM_SOC; ++c) {
             u[soc_start[c]] += add;
         }
     }
@@ -2556,7 +2556,7 @@ static void kkt_assemble_data(pdg_socp_work *w)
 {
     const real *av = w->data + OFF_A;
     const real *gv = w->data + OFF_G;
-    const real eps = w->reg;
+    const real eps = w->shift;
     int i, k;
     EACH(k, KKT_NNZ) {
         w->kkt[k] = R(0);
@@ -2578,7 +2578,7 @@ static void kkt_assemble_data(pdg_socp_work *w)
 /* The -W'W - eps block of the cone rows; init = 1: W = I (starting point). */
 static void kkt_assemble_scaling(pdg_socp_work *w, int init)
 {
-    const real eps = w->reg;
+    const real eps = w->shift;
     int i, c, a, b, k;
     if (init) {
         for (i = 0; i < NCON; ++i) {
@@ -2593,7 +2593,7 @@ static void kkt_assemble_scaling(pdg_socp_work *w, int init)
         w->kkt[kpos_zdiag[i]] = -(w->ntw[i] * w->ntw[i]) - eps;
     }
     k = 0;
-    for (c = 0; c < NSOC; ++c) {
+    for (c = 0; c < NUM_SOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
         const real *wb = w->ntw + o;
@@ -2611,17 +2611,17 @@ static void kkt_assemble_scaling(pdg_socp_work *w, int init)
 }
 
 /* Dynamic regularisation of a pivot d of expected sign sgn: a pivot of the
- * wrong sign or below dynamic_reg_eps becomes sgn * dynamic_reg_delta.
+ * wrong sign or below pivot_floor becomes sgn * pivot_replacement.
  * Returns 0, or -1 if the pivot is not a number or not finite. */
-static int pivot_fix(pdg_socp_work *w, const pdg_socp_settings *st, real *d,
+static int pivot_fix(pdg_socp_work *w, const pdg_socp_config *st, real *d,
                      real sgn)
 {
-    if (!(sgn * *d > st->dynamic_reg_eps)) {
+    if (!(sgn * *d > st->pivot_floor)) {
         if (*d != *d) {
             return -1;
         }
-        *d = sgn * st->dynamic_reg_delta;
-        w->dynamic_reg_count += 1;
+        *d = sgn * st->pivot_replacement;
+        w->pivots_replaced += 1;
     }
     if (!(FABS(*d) < HUGE_VAL)) {
         return -1;
@@ -2633,7 +2633,7 @@ static int pivot_fix(pdg_socp_work *w, const pdg_socp_settings *st, real *d,
  * whose row-wise patterns start at r_ptr index k_begin - roff (w->scat is
  * zero on entry and on return). Returns 0, or -1 if a pivot is not
  * finite. */
-static int factor_rows(pdg_socp_work *w, const pdg_socp_settings *st,
+static int factor_rows(pdg_socp_work *w, const pdg_socp_config *st,
                        int k_begin, int k_end, int roff)
 {
     real *y1 = w->res;
@@ -2658,11 +2658,11 @@ static int factor_rows(pdg_socp_work *w, const pdg_socp_settings *st,
             yj = w->scat[j];
             w->scat[j] = R(0);
             for (q = l_ptr[j]; q < pos; ++q) {
-                w->scat[l_row[q]] -= w->lx[q] * yj;
+                w->scat[l_row[q]] -= w->l_val[q] * yj;
             }
-            lkj = yj * w->dinv[j];
+            lkj = yj * w->pivot_inv[j];
             d -= lkj * yj;
-            w->lx[pos] = lkj;
+            w->l_val[pos] = lkj;
             f1 -= lkj * y1[j];
             f2 -= lkj * y2[j];
         }
@@ -2671,13 +2671,13 @@ static int factor_rows(pdg_socp_work *w, const pdg_socp_settings *st,
         if (pivot_fix(w, st, &d, sgn) != 0) {
             return -1;
         }
-        w->dinv[k] = R(1) / d;
+        w->pivot_inv[k] = R(1) / d;
     }
     return 0;
 }
 
 /* Forward sweep t = L^{-1} b(perm) over rows k_begin..k_end-1, by rows (a
- * dot product with row k of L, read from lx through r_pos; row k's pattern
+ * dot product with row k of L, read from l_val through r_pos; row k's pattern
  * at r_ptr index k - roff). */
 static void forward_rows(const pdg_socp_work *w, const real *b, real *t, int k_begin,
                          int k_end, int roff)
@@ -2686,7 +2686,7 @@ static void forward_rows(const pdg_socp_work *w, const real *b, real *t, int k_b
     for (k = k_begin; k < k_end; ++k) {
         real acc = b[perm[k]];
         for (q = r_ptr[k - roff]; q < r_ptr[k - roff + 1]; ++q) {
-            acc -= w->lx[r_pos[q]] * t[r_col[q]];
+            acc -= w->l_val[r_pos[q]] * t[r_col[q]];
         }
         t[k] = acc;
     }
@@ -2706,9 +2706,9 @@ static void backward_cols(const pdg_socp_work *w, real *t, real *x, int k_begin,
 {
     int k, q;
     for (k = k_end - 1; k >= k_begin; --k) {
-        real acc = t[k] * w->dinv[k];
+        real acc = t[k] * w->pivot_inv[k];
         for (q = l_ptr[k + 1] - 1; q >= l_ptr[k]; --q) {
-            acc -= w->lx[q] * t[l_row[q]];
+            acc -= w->l_val[q] * t[l_row[q]];
         }
         t[k] = acc;
         x[perm[k]] = acc;
@@ -2721,12 +2721,12 @@ static void backward_cols2(const pdg_socp_work *w, real *t, real *t2, real *x1,
 {
     int k, q;
     for (k = k_end - 1; k >= k_begin; --k) {
-        real acc = t[k] * w->dinv[k];
-        real acc2 = t2[k] * w->dinv[k];
+        real acc = t[k] * w->pivot_inv[k];
+        real acc2 = t2[k] * w->pivot_inv[k];
         for (q = l_ptr[k + 1] - 1; q >= l_ptr[k]; --q) {
             const int i = l_row[q];
-            acc -= w->lx[q] * t[i];
-            acc2 -= w->lx[q] * t2[i];
+            acc -= w->l_val[q] * t[i];
+            acc2 -= w->l_val[q] * t2[i];
         }
         t[k] = acc;
         t2[k] = acc2;
@@ -2737,10 +2737,10 @@ static void backward_cols2(const pdg_socp_work *w, real *t, real *t2, real *x1,
 
 
 /* ---- stage kernel ------------------------------------------------------------ */
-/* The ordering is stage-periodic (codegen/native/periodic.py): the rows of
+/* The ordering is stage-periodic (codegen/backends/native/periodic.py): the rows of
  * stages 2..49 of the factorisation (and columns of stages
  * 1..48 of the backward sweep) repeat the pattern of L of the one
- * before, shifted by SK_P rows, SK_LQ positions of lx and SK_QR of the KKT
+ * before, shifted by SK_P rows, SK_LQ positions of l_val and SK_QR of the KKT
  * values. The work of one stage is written out below, with
  * constant offsets from base pointers (an offset may be negative: the entry
  * belongs to the stage before); generation verified that every stage in the
@@ -2761,12 +2761,12 @@ static void backward_cols2(const pdg_socp_work *w, real *t, real *t2, real *x1,
 /* Factor rows k0..k0+SK_P-1 (one stage): L(k, j) = y_j / d_j with
  * y_j = K(j, k) - sum_i L(j, i) y_i, d_k = K(k, k) - sum_j L(k, j) y_j, and
  * the forward sweeps of rhs and rhs2 (as factor_rows). */
-static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
+static int factor_stage(pdg_socp_work *w, const pdg_socp_config *st, int k0,
                         int l0, int q0)
 {
     const real *kk = w->kkt + q0;
-    real *lx = w->lx + l0;
-    real *dinv = w->dinv + k0;
+    real *lv = w->l_val + l0;
+    real *pinv = w->pivot_inv + k0;
     real *y1 = w->res + k0;
     real *y2 = w->corr + k0;
     real yv[21];
@@ -2779,7 +2779,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[0] = R(1) / d;
+    pinv[0] = R(1) / d;
     /* row 1 */
     d = kk[1];
     f1 = w->rhs[perm[k0 + 1]];
@@ -2788,7 +2788,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[1] = R(1) / d;
+    pinv[1] = R(1) / d;
     /* row 2 */
     d = kk[2];
     f1 = w->rhs[perm[k0 + 2]];
@@ -2797,7 +2797,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[2] = R(1) / d;
+    pinv[2] = R(1) / d;
     /* row 3 */
     d = kk[3];
     f1 = w->rhs[perm[k0 + 3]];
@@ -2806,7 +2806,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[3] = R(1) / d;
+    pinv[3] = R(1) / d;
     /* row 4 */
     d = kk[4];
     f1 = w->rhs[perm[k0 + 4]];
@@ -2815,19 +2815,19 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[4] = R(1) / d;
+    pinv[4] = R(1) / d;
     /* row 5 */
     d = kk[6];
     f1 = w->rhs[perm[k0 + 5]];
     f2 = w->rhs2[perm[k0 + 5]];
     yv[0] = kk[5];
-    l = yv[0] * dinv[4]; d -= l * yv[0]; lx[8] = l;
+    l = yv[0] * pinv[4]; d -= l * yv[0]; lv[8] = l;
     f1 -= l * y1[4]; f2 -= l * y2[4];
     y1[5] = f1; y2[5] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[5] = R(1) / d;
+    pinv[5] = R(1) / d;
     /* row 6 */
     d = kk[7];
     f1 = w->rhs[perm[k0 + 6]];
@@ -2836,34 +2836,34 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[6] = R(1) / d;
+    pinv[6] = R(1) / d;
     /* row 7 */
     d = kk[9];
     f1 = w->rhs[perm[k0 + 7]];
     f2 = w->rhs2[perm[k0 + 7]];
     yv[0] = kk[8];
-    l = yv[0] * dinv[2]; d -= l * yv[0]; lx[2] = l;
+    l = yv[0] * pinv[2]; d -= l * yv[0]; lv[2] = l;
     f1 -= l * y1[2]; f2 -= l * y2[2];
     y1[7] = f1; y2[7] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[7] = R(1) / d;
+    pinv[7] = R(1) / d;
     /* row 8 */
     d = kk[12];
     f1 = w->rhs[perm[k0 + 8]];
     f2 = w->rhs2[perm[k0 + 8]];
     yv[0] = kk[10];
-    l = yv[0] * dinv[2]; d -= l * yv[0]; lx[3] = l;
+    l = yv[0] * pinv[2]; d -= l * yv[0]; lv[3] = l;
     f1 -= l * y1[2]; f2 -= l * y2[2];
-    yv[1] = kk[11] - lx[2] * yv[0];
-    l = yv[1] * dinv[7]; d -= l * yv[1]; lx[14] = l;
+    yv[1] = kk[11] - lv[2] * yv[0];
+    l = yv[1] * pinv[7]; d -= l * yv[1]; lv[14] = l;
     f1 -= l * y1[7]; f2 -= l * y2[7];
     y1[8] = f1; y2[8] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[8] = R(1) / d;
+    pinv[8] = R(1) / d;
     /* row 9 */
     d = kk[13];
     f1 = w->rhs[perm[k0 + 9]];
@@ -2872,79 +2872,79 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[9] = R(1) / d;
+    pinv[9] = R(1) / d;
     /* row 10 */
     d = kk[20];
     f1 = w->rhs[perm[k0 + 10]];
     f2 = w->rhs2[perm[k0 + 10]];
     yv[0] = kk[14];
-    l = yv[0] * dinv[0]; d -= l * yv[0]; lx[0] = l;
+    l = yv[0] * pinv[0]; d -= l * yv[0]; lv[0] = l;
     f1 -= l * y1[0]; f2 -= l * y2[0];
     yv[1] = kk[15];
-    l = yv[1] * dinv[1]; d -= l * yv[1]; lx[1] = l;
+    l = yv[1] * pinv[1]; d -= l * yv[1]; lv[1] = l;
     f1 -= l * y1[1]; f2 -= l * y2[1];
     yv[2] = kk[16];
-    l = yv[2] * dinv[2]; d -= l * yv[2]; lx[4] = l;
+    l = yv[2] * pinv[2]; d -= l * yv[2]; lv[4] = l;
     f1 -= l * y1[2]; f2 -= l * y2[2];
     yv[3] = kk[17];
-    l = yv[3] * dinv[6]; d -= l * yv[3]; lx[12] = l;
+    l = yv[3] * pinv[6]; d -= l * yv[3]; lv[12] = l;
     f1 -= l * y1[6]; f2 -= l * y2[6];
-    yv[4] = kk[18] - lx[2] * yv[2];
-    l = yv[4] * dinv[7]; d -= l * yv[4]; lx[15] = l;
+    yv[4] = kk[18] - lv[2] * yv[2];
+    l = yv[4] * pinv[7]; d -= l * yv[4]; lv[15] = l;
     f1 -= l * y1[7]; f2 -= l * y2[7];
-    yv[5] = kk[19] - lx[3] * yv[2] - lx[14] * yv[4];
-    l = yv[5] * dinv[8]; d -= l * yv[5]; lx[17] = l;
+    yv[5] = kk[19] - lv[3] * yv[2] - lv[14] * yv[4];
+    l = yv[5] * pinv[8]; d -= l * yv[5]; lv[17] = l;
     f1 -= l * y1[8]; f2 -= l * y2[8];
     y1[10] = f1; y2[10] = f2;
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[10] = R(1) / d;
+    pinv[10] = R(1) / d;
     /* row 11 */
     d = kk[22];
     f1 = w->rhs[perm[k0 + 11]];
     f2 = w->rhs2[perm[k0 + 11]];
     yv[0] = kk[21];
-    l = yv[0] * dinv[3]; d -= l * yv[0]; lx[5] = l;
+    l = yv[0] * pinv[3]; d -= l * yv[0]; lv[5] = l;
     f1 -= l * y1[3]; f2 -= l * y2[3];
     y1[11] = f1; y2[11] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[11] = R(1) / d;
+    pinv[11] = R(1) / d;
     /* row 12 */
     d = kk[25];
     f1 = w->rhs[perm[k0 + 12]];
     f2 = w->rhs2[perm[k0 + 12]];
     yv[0] = kk[23];
-    l = yv[0] * dinv[3]; d -= l * yv[0]; lx[6] = l;
+    l = yv[0] * pinv[3]; d -= l * yv[0]; lv[6] = l;
     f1 -= l * y1[3]; f2 -= l * y2[3];
-    yv[1] = kk[24] - lx[5] * yv[0];
-    l = yv[1] * dinv[11]; d -= l * yv[1]; lx[24] = l;
+    yv[1] = kk[24] - lv[5] * yv[0];
+    l = yv[1] * pinv[11]; d -= l * yv[1]; lv[24] = l;
     f1 -= l * y1[11]; f2 -= l * y2[11];
     y1[12] = f1; y2[12] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[12] = R(1) / d;
+    pinv[12] = R(1) / d;
     /* row 13 */
     d = kk[29];
     f1 = w->rhs[perm[k0 + 13]];
     f2 = w->rhs2[perm[k0 + 13]];
     yv[0] = kk[26];
-    l = yv[0] * dinv[3]; d -= l * yv[0]; lx[7] = l;
+    l = yv[0] * pinv[3]; d -= l * yv[0]; lv[7] = l;
     f1 -= l * y1[3]; f2 -= l * y2[3];
-    yv[1] = kk[27] - lx[5] * yv[0];
-    l = yv[1] * dinv[11]; d -= l * yv[1]; lx[25] = l;
+    yv[1] = kk[27] - lv[5] * yv[0];
+    l = yv[1] * pinv[11]; d -= l * yv[1]; lv[25] = l;
     f1 -= l * y1[11]; f2 -= l * y2[11];
-    yv[2] = kk[28] - lx[6] * yv[0] - lx[24] * yv[1];
-    l = yv[2] * dinv[12]; d -= l * yv[2]; lx[27] = l;
+    yv[2] = kk[28] - lv[6] * yv[0] - lv[24] * yv[1];
+    l = yv[2] * pinv[12]; d -= l * yv[2]; lv[27] = l;
     f1 -= l * y1[12]; f2 -= l * y2[12];
     y1[13] = f1; y2[13] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[13] = R(1) / d;
+    pinv[13] = R(1) / d;
     /* row 14 */
     d = kk[30];
     f1 = w->rhs[perm[k0 + 14]];
@@ -2953,34 +2953,34 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[14] = R(1) / d;
+    pinv[14] = R(1) / d;
     /* row 15 */
     d = kk[32];
     f1 = w->rhs[perm[k0 + 15]];
     f2 = w->rhs2[perm[k0 + 15]];
     yv[0] = kk[31];
-    l = yv[0] * dinv[14]; d -= l * yv[0]; lx[33] = l;
+    l = yv[0] * pinv[14]; d -= l * yv[0]; lv[33] = l;
     f1 -= l * y1[14]; f2 -= l * y2[14];
     y1[15] = f1; y2[15] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[15] = R(1) / d;
+    pinv[15] = R(1) / d;
     /* row 16 */
     d = kk[35];
     f1 = w->rhs[perm[k0 + 16]];
     f2 = w->rhs2[perm[k0 + 16]];
     yv[0] = kk[33];
-    l = yv[0] * dinv[14]; d -= l * yv[0]; lx[34] = l;
+    l = yv[0] * pinv[14]; d -= l * yv[0]; lv[34] = l;
     f1 -= l * y1[14]; f2 -= l * y2[14];
-    yv[1] = kk[34] - lx[33] * yv[0];
-    l = yv[1] * dinv[15]; d -= l * yv[1]; lx[36] = l;
+    yv[1] = kk[34] - lv[33] * yv[0];
+    l = yv[1] * pinv[15]; d -= l * yv[1]; lv[36] = l;
     f1 -= l * y1[15]; f2 -= l * y2[15];
     y1[16] = f1; y2[16] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[16] = R(1) / d;
+    pinv[16] = R(1) / d;
     /* row 17 */
     d = kk[36];
     f1 = w->rhs[perm[k0 + 17]];
@@ -2989,7 +2989,7 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[17] = R(1) / d;
+    pinv[17] = R(1) / d;
     /* row 18 */
     d = kk[37];
     f1 = w->rhs[perm[k0 + 18]];
@@ -2998,845 +2998,845 @@ static int factor_stage(pdg_socp_work *w, const pdg_socp_settings *st, int k0,
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[18] = R(1) / d;
+    pinv[18] = R(1) / d;
     /* row 19 */
     d = kk[39];
     f1 = w->rhs[perm[k0 + 19]];
     f2 = w->rhs2[perm[k0 + 19]];
     yv[0] = kk[38];
-    l = yv[0] * dinv[4]; d -= l * yv[0]; lx[9] = l;
+    l = yv[0] * pinv[4]; d -= l * yv[0]; lv[9] = l;
     f1 -= l * y1[4]; f2 -= l * y2[4];
-    yv[1] = R(0) - lx[8] * yv[0];
-    l = yv[1] * dinv[5]; d -= l * yv[1]; lx[10] = l;
+    yv[1] = R(0) - lv[8] * yv[0];
+    l = yv[1] * pinv[5]; d -= l * yv[1]; lv[10] = l;
     f1 -= l * y1[5]; f2 -= l * y2[5];
     y1[19] = f1; y2[19] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[19] = R(1) / d;
+    pinv[19] = R(1) / d;
     /* row 20 */
     d = kk[41];
     f1 = w->rhs[perm[k0 + 20]];
     f2 = w->rhs2[perm[k0 + 20]];
     yv[0] = kk[40];
-    l = yv[0] * dinv[19]; d -= l * yv[0]; lx[48] = l;
+    l = yv[0] * pinv[19]; d -= l * yv[0]; lv[48] = l;
     f1 -= l * y1[19]; f2 -= l * y2[19];
     y1[20] = f1; y2[20] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[20] = R(1) / d;
+    pinv[20] = R(1) / d;
     /* row 21 */
     d = kk[43];
     f1 = w->rhs[perm[k0 + 21]];
     f2 = w->rhs2[perm[k0 + 21]];
     yv[0] = kk[42];
-    l = yv[0] * dinv[15]; d -= l * yv[0]; lx[37] = l;
+    l = yv[0] * pinv[15]; d -= l * yv[0]; lv[37] = l;
     f1 -= l * y1[15]; f2 -= l * y2[15];
-    yv[1] = R(0) - lx[36] * yv[0];
-    l = yv[1] * dinv[16]; d -= l * yv[1]; lx[39] = l;
+    yv[1] = R(0) - lv[36] * yv[0];
+    l = yv[1] * pinv[16]; d -= l * yv[1]; lv[39] = l;
     f1 -= l * y1[16]; f2 -= l * y2[16];
     y1[21] = f1; y2[21] = f2;
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[21] = R(1) / d;
+    pinv[21] = R(1) / d;
     /* row 22 */
     d = kk[47];
     f1 = w->rhs[perm[k0 + 22]];
     f2 = w->rhs2[perm[k0 + 22]];
     yv[0] = kk[44];
-    l = yv[0] * dinv[-20]; d -= l * yv[0]; lx[-125] = l;
+    l = yv[0] * pinv[-20]; d -= l * yv[0]; lv[-125] = l;
     f1 -= l * y1[-20]; f2 -= l * y2[-20];
     yv[1] = kk[45];
-    l = yv[1] * dinv[-10]; d -= l * yv[1]; lx[-64] = l;
+    l = yv[1] * pinv[-10]; d -= l * yv[1]; lv[-64] = l;
     f1 -= l * y1[-10]; f2 -= l * y2[-10];
-    yv[2] = R(0) - lx[-69] * yv[1];
-    l = yv[2] * dinv[-9]; d -= l * yv[2]; lx[-58] = l;
+    yv[2] = R(0) - lv[-69] * yv[1];
+    l = yv[2] * pinv[-9]; d -= l * yv[2]; lv[-58] = l;
     f1 -= l * y1[-9]; f2 -= l * y2[-9];
-    yv[3] = R(0) - lx[-68] * yv[1] - lx[-62] * yv[2];
-    l = yv[3] * dinv[-8]; d -= l * yv[3]; lx[-52] = l;
+    yv[3] = R(0) - lv[-68] * yv[1] - lv[-62] * yv[2];
+    l = yv[3] * pinv[-8]; d -= l * yv[3]; lv[-52] = l;
     f1 -= l * y1[-8]; f2 -= l * y2[-8];
-    yv[4] = kk[46] - lx[-67] * yv[1] - lx[-61] * yv[2] - lx[-55] * yv[3];
-    l = yv[4] * dinv[-7]; d -= l * yv[4]; lx[-46] = l;
+    yv[4] = kk[46] - lv[-67] * yv[1] - lv[-61] * yv[2] - lv[-55] * yv[3];
+    l = yv[4] * pinv[-7]; d -= l * yv[4]; lv[-46] = l;
     f1 -= l * y1[-7]; f2 -= l * y2[-7];
-    yv[5] = R(0) - lx[-126] * yv[0];
-    l = yv[5] * dinv[-4]; d -= l * yv[5]; lx[-28] = l;
+    yv[5] = R(0) - lv[-126] * yv[0];
+    l = yv[5] * pinv[-4]; d -= l * yv[5]; lv[-28] = l;
     f1 -= l * y1[-4]; f2 -= l * y2[-4];
-    yv[6] = R(0) - lx[-66] * yv[1] - lx[-60] * yv[2] - lx[-54] * yv[3] - lx[-48] * yv[4]
-        - lx[-30] * yv[5];
-    l = yv[6] * dinv[-3]; d -= l * yv[6]; lx[-21] = l;
+    yv[6] = R(0) - lv[-66] * yv[1] - lv[-60] * yv[2] - lv[-54] * yv[3] - lv[-48] * yv[4]
+        - lv[-30] * yv[5];
+    l = yv[6] * pinv[-3]; d -= l * yv[6]; lv[-21] = l;
     f1 -= l * y1[-3]; f2 -= l * y2[-3];
-    yv[7] = R(0) - lx[-65] * yv[1] - lx[-59] * yv[2] - lx[-53] * yv[3] - lx[-47] * yv[4]
-        - lx[-23] * yv[6];
-    l = yv[7] * dinv[-2]; d -= l * yv[7]; lx[-14] = l;
+    yv[7] = R(0) - lv[-65] * yv[1] - lv[-59] * yv[2] - lv[-53] * yv[3] - lv[-47] * yv[4]
+        - lv[-23] * yv[6];
+    l = yv[7] * pinv[-2]; d -= l * yv[7]; lv[-14] = l;
     f1 -= l * y1[-2]; f2 -= l * y2[-2];
-    yv[8] = R(0) - lx[-29] * yv[5] - lx[-22] * yv[6] - lx[-15] * yv[7];
-    l = yv[8] * dinv[-1]; d -= l * yv[8]; lx[-7] = l;
+    yv[8] = R(0) - lv[-29] * yv[5] - lv[-22] * yv[6] - lv[-15] * yv[7];
+    l = yv[8] * pinv[-1]; d -= l * yv[8]; lv[-7] = l;
     f1 -= l * y1[-1]; f2 -= l * y2[-1];
     y1[22] = f1; y2[22] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[22] = R(1) / d;
+    pinv[22] = R(1) / d;
     /* row 23 */
     d = kk[51];
     f1 = w->rhs[perm[k0 + 23]];
     f2 = w->rhs2[perm[k0 + 23]];
     yv[0] = kk[48];
-    l = yv[0] * dinv[-9]; d -= l * yv[0]; lx[-57] = l;
+    l = yv[0] * pinv[-9]; d -= l * yv[0]; lv[-57] = l;
     f1 -= l * y1[-9]; f2 -= l * y2[-9];
-    yv[1] = R(0) - lx[-62] * yv[0];
-    l = yv[1] * dinv[-8]; d -= l * yv[1]; lx[-51] = l;
+    yv[1] = R(0) - lv[-62] * yv[0];
+    l = yv[1] * pinv[-8]; d -= l * yv[1]; lv[-51] = l;
     f1 -= l * y1[-8]; f2 -= l * y2[-8];
-    yv[2] = R(0) - lx[-61] * yv[0] - lx[-55] * yv[1];
-    l = yv[2] * dinv[-7]; d -= l * yv[2]; lx[-45] = l;
+    yv[2] = R(0) - lv[-61] * yv[0] - lv[-55] * yv[1];
+    l = yv[2] * pinv[-7]; d -= l * yv[2]; lv[-45] = l;
     f1 -= l * y1[-7]; f2 -= l * y2[-7];
-    yv[3] = R(0) - lx[-60] * yv[0] - lx[-54] * yv[1] - lx[-48] * yv[2];
-    l = yv[3] * dinv[-3]; d -= l * yv[3]; lx[-20] = l;
+    yv[3] = R(0) - lv[-60] * yv[0] - lv[-54] * yv[1] - lv[-48] * yv[2];
+    l = yv[3] * pinv[-3]; d -= l * yv[3]; lv[-20] = l;
     f1 -= l * y1[-3]; f2 -= l * y2[-3];
-    yv[4] = kk[49] - lx[-59] * yv[0] - lx[-53] * yv[1] - lx[-47] * yv[2] - lx[-23] * yv[3];
-    l = yv[4] * dinv[-2]; d -= l * yv[4]; lx[-13] = l;
+    yv[4] = kk[49] - lv[-59] * yv[0] - lv[-53] * yv[1] - lv[-47] * yv[2] - lv[-23] * yv[3];
+    l = yv[4] * pinv[-2]; d -= l * yv[4]; lv[-13] = l;
     f1 -= l * y1[-2]; f2 -= l * y2[-2];
-    yv[5] = kk[50] - lx[-22] * yv[3] - lx[-15] * yv[4];
-    l = yv[5] * dinv[-1]; d -= l * yv[5]; lx[-6] = l;
+    yv[5] = kk[50] - lv[-22] * yv[3] - lv[-15] * yv[4];
+    l = yv[5] * pinv[-1]; d -= l * yv[5]; lv[-6] = l;
     f1 -= l * y1[-1]; f2 -= l * y2[-1];
-    yv[6] = R(0) - lx[-58] * yv[0] - lx[-52] * yv[1] - lx[-46] * yv[2] - lx[-21] * yv[3]
-        - lx[-14] * yv[4] - lx[-7] * yv[5];
-    l = yv[6] * dinv[22]; d -= l * yv[6]; lx[60] = l;
+    yv[6] = R(0) - lv[-58] * yv[0] - lv[-52] * yv[1] - lv[-46] * yv[2] - lv[-21] * yv[3]
+        - lv[-14] * yv[4] - lv[-7] * yv[5];
+    l = yv[6] * pinv[22]; d -= l * yv[6]; lv[60] = l;
     f1 -= l * y1[22]; f2 -= l * y2[22];
     y1[23] = f1; y2[23] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[23] = R(1) / d;
+    pinv[23] = R(1) / d;
     /* row 24 */
     d = kk[56];
     f1 = w->rhs[perm[k0 + 24]];
     f2 = w->rhs2[perm[k0 + 24]];
     yv[0] = kk[52];
-    l = yv[0] * dinv[-21]; d -= l * yv[0]; lx[-128] = l;
+    l = yv[0] * pinv[-21]; d -= l * yv[0]; lv[-128] = l;
     f1 -= l * y1[-21]; f2 -= l * y2[-21];
     yv[1] = kk[53];
-    l = yv[1] * dinv[-17]; d -= l * yv[1]; lx[-112] = l;
+    l = yv[1] * pinv[-17]; d -= l * yv[1]; lv[-112] = l;
     f1 -= l * y1[-17]; f2 -= l * y2[-17];
-    yv[2] = R(0) - lx[-115] * yv[1];
-    l = yv[2] * dinv[-14]; d -= l * yv[2]; lx[-91] = l;
+    yv[2] = R(0) - lv[-115] * yv[1];
+    l = yv[2] * pinv[-14]; d -= l * yv[2]; lv[-91] = l;
     f1 -= l * y1[-14]; f2 -= l * y2[-14];
-    yv[3] = R(0) - lx[-97] * yv[2];
-    l = yv[3] * dinv[-13]; d -= l * yv[3]; lx[-84] = l;
+    yv[3] = R(0) - lv[-97] * yv[2];
+    l = yv[3] * pinv[-13]; d -= l * yv[3]; lv[-84] = l;
     f1 -= l * y1[-13]; f2 -= l * y2[-13];
-    yv[4] = R(0) - lx[-96] * yv[2] - lx[-90] * yv[3];
-    l = yv[4] * dinv[-12]; d -= l * yv[4]; lx[-77] = l;
+    yv[4] = R(0) - lv[-96] * yv[2] - lv[-90] * yv[3];
+    l = yv[4] * pinv[-12]; d -= l * yv[4]; lv[-77] = l;
     f1 -= l * y1[-12]; f2 -= l * y2[-12];
-    yv[5] = R(0) - lx[-95] * yv[2] - lx[-89] * yv[3] - lx[-83] * yv[4];
-    l = yv[5] * dinv[-11]; d -= l * yv[5]; lx[-70] = l;
+    yv[5] = R(0) - lv[-95] * yv[2] - lv[-89] * yv[3] - lv[-83] * yv[4];
+    l = yv[5] * pinv[-11]; d -= l * yv[5]; lv[-70] = l;
     f1 -= l * y1[-11]; f2 -= l * y2[-11];
-    yv[6] = R(0) - lx[-114] * yv[1] - lx[-94] * yv[2] - lx[-88] * yv[3] - lx[-82] * yv[4]
-        - lx[-76] * yv[5];
-    l = yv[6] * dinv[-10]; d -= l * yv[6]; lx[-63] = l;
+    yv[6] = R(0) - lv[-114] * yv[1] - lv[-94] * yv[2] - lv[-88] * yv[3] - lv[-82] * yv[4]
+        - lv[-76] * yv[5];
+    l = yv[6] * pinv[-10]; d -= l * yv[6]; lv[-63] = l;
     f1 -= l * y1[-10]; f2 -= l * y2[-10];
-    yv[7] = R(0) - lx[-113] * yv[1] - lx[-93] * yv[2] - lx[-87] * yv[3] - lx[-81] * yv[4]
-        - lx[-75] * yv[5] - lx[-69] * yv[6];
-    l = yv[7] * dinv[-9]; d -= l * yv[7]; lx[-56] = l;
+    yv[7] = R(0) - lv[-113] * yv[1] - lv[-93] * yv[2] - lv[-87] * yv[3] - lv[-81] * yv[4]
+        - lv[-75] * yv[5] - lv[-69] * yv[6];
+    l = yv[7] * pinv[-9]; d -= l * yv[7]; lv[-56] = l;
     f1 -= l * y1[-9]; f2 -= l * y2[-9];
-    yv[8] = kk[54] - lx[-86] * yv[3] - lx[-80] * yv[4] - lx[-74] * yv[5] - lx[-68] * yv[6]
-        - lx[-62] * yv[7];
-    l = yv[8] * dinv[-8]; d -= l * yv[8]; lx[-50] = l;
+    yv[8] = kk[54] - lv[-86] * yv[3] - lv[-80] * yv[4] - lv[-74] * yv[5] - lv[-68] * yv[6]
+        - lv[-62] * yv[7];
+    l = yv[8] * pinv[-8]; d -= l * yv[8]; lv[-50] = l;
     f1 -= l * y1[-8]; f2 -= l * y2[-8];
-    yv[9] = R(0) - lx[-79] * yv[4] - lx[-73] * yv[5] - lx[-67] * yv[6] - lx[-61] * yv[7]
-        - lx[-55] * yv[8];
-    l = yv[9] * dinv[-7]; d -= l * yv[9]; lx[-44] = l;
+    yv[9] = R(0) - lv[-79] * yv[4] - lv[-73] * yv[5] - lv[-67] * yv[6] - lv[-61] * yv[7]
+        - lv[-55] * yv[8];
+    l = yv[9] * pinv[-7]; d -= l * yv[9]; lv[-44] = l;
     f1 -= l * y1[-7]; f2 -= l * y2[-7];
-    yv[10] = R(0) - lx[-129] * yv[0];
-    l = yv[10] * dinv[-5]; d -= l * yv[10]; lx[-33] = l;
+    yv[10] = R(0) - lv[-129] * yv[0];
+    l = yv[10] * pinv[-5]; d -= l * yv[10]; lv[-33] = l;
     f1 -= l * y1[-5]; f2 -= l * y2[-5];
-    yv[11] = R(0) - lx[-36] * yv[10];
-    l = yv[11] * dinv[-4]; d -= l * yv[11]; lx[-27] = l;
+    yv[11] = R(0) - lv[-36] * yv[10];
+    l = yv[11] * pinv[-4]; d -= l * yv[11]; lv[-27] = l;
     f1 -= l * y1[-4]; f2 -= l * y2[-4];
-    yv[12] = R(0) - lx[-92] * yv[2] - lx[-85] * yv[3] - lx[-78] * yv[4] - lx[-72] * yv[5]
-        - lx[-66] * yv[6] - lx[-60] * yv[7] - lx[-54] * yv[8] - lx[-48] * yv[9]
-        - lx[-35] * yv[10] - lx[-30] * yv[11];
-    l = yv[12] * dinv[-3]; d -= l * yv[12]; lx[-19] = l;
+    yv[12] = R(0) - lv[-92] * yv[2] - lv[-85] * yv[3] - lv[-78] * yv[4] - lv[-72] * yv[5]
+        - lv[-66] * yv[6] - lv[-60] * yv[7] - lv[-54] * yv[8] - lv[-48] * yv[9]
+        - lv[-35] * yv[10] - lv[-30] * yv[11];
+    l = yv[12] * pinv[-3]; d -= l * yv[12]; lv[-19] = l;
     f1 -= l * y1[-3]; f2 -= l * y2[-3];
-    yv[13] = R(0) - lx[-71] * yv[5] - lx[-65] * yv[6] - lx[-59] * yv[7] - lx[-53] * yv[8]
-        - lx[-47] * yv[9] - lx[-23] * yv[12];
-    l = yv[13] * dinv[-2]; d -= l * yv[13]; lx[-12] = l;
+    yv[13] = R(0) - lv[-71] * yv[5] - lv[-65] * yv[6] - lv[-59] * yv[7] - lv[-53] * yv[8]
+        - lv[-47] * yv[9] - lv[-23] * yv[12];
+    l = yv[13] * pinv[-2]; d -= l * yv[13]; lv[-12] = l;
     f1 -= l * y1[-2]; f2 -= l * y2[-2];
-    yv[14] = R(0) - lx[-34] * yv[10] - lx[-29] * yv[11] - lx[-22] * yv[12] - lx[-15] * yv[13];
-    l = yv[14] * dinv[-1]; d -= l * yv[14]; lx[-5] = l;
+    yv[14] = R(0) - lv[-34] * yv[10] - lv[-29] * yv[11] - lv[-22] * yv[12] - lv[-15] * yv[13];
+    l = yv[14] * pinv[-1]; d -= l * yv[14]; lv[-5] = l;
     f1 -= l * y1[-1]; f2 -= l * y2[-1];
     yv[15] = kk[55];
-    l = yv[15] * dinv[21]; d -= l * yv[15]; lx[56] = l;
+    l = yv[15] * pinv[21]; d -= l * yv[15]; lv[56] = l;
     f1 -= l * y1[21]; f2 -= l * y2[21];
-    yv[16] = R(0) - lx[-64] * yv[6] - lx[-58] * yv[7] - lx[-52] * yv[8] - lx[-46] * yv[9]
-        - lx[-28] * yv[11] - lx[-21] * yv[12] - lx[-14] * yv[13] - lx[-7] * yv[14];
-    l = yv[16] * dinv[22]; d -= l * yv[16]; lx[61] = l;
+    yv[16] = R(0) - lv[-64] * yv[6] - lv[-58] * yv[7] - lv[-52] * yv[8] - lv[-46] * yv[9]
+        - lv[-28] * yv[11] - lv[-21] * yv[12] - lv[-14] * yv[13] - lv[-7] * yv[14];
+    l = yv[16] * pinv[22]; d -= l * yv[16]; lv[61] = l;
     f1 -= l * y1[22]; f2 -= l * y2[22];
-    yv[17] = R(0) - lx[-57] * yv[7] - lx[-51] * yv[8] - lx[-45] * yv[9] - lx[-20] * yv[12]
-        - lx[-13] * yv[13] - lx[-6] * yv[14] - lx[60] * yv[16];
-    l = yv[17] * dinv[23]; d -= l * yv[17]; lx[67] = l;
+    yv[17] = R(0) - lv[-57] * yv[7] - lv[-51] * yv[8] - lv[-45] * yv[9] - lv[-20] * yv[12]
+        - lv[-13] * yv[13] - lv[-6] * yv[14] - lv[60] * yv[16];
+    l = yv[17] * pinv[23]; d -= l * yv[17]; lv[67] = l;
     f1 -= l * y1[23]; f2 -= l * y2[23];
     y1[24] = f1; y2[24] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[24] = R(1) / d;
+    pinv[24] = R(1) / d;
     /* row 25 */
     d = kk[59];
     f1 = w->rhs[perm[k0 + 25]];
     f2 = w->rhs2[perm[k0 + 25]];
     yv[0] = kk[57];
-    l = yv[0] * dinv[-21]; d -= l * yv[0]; lx[-127] = l;
+    l = yv[0] * pinv[-21]; d -= l * yv[0]; lv[-127] = l;
     f1 -= l * y1[-21]; f2 -= l * y2[-21];
     yv[1] = kk[58];
-    l = yv[1] * dinv[-8]; d -= l * yv[1]; lx[-49] = l;
+    l = yv[1] * pinv[-8]; d -= l * yv[1]; lv[-49] = l;
     f1 -= l * y1[-8]; f2 -= l * y2[-8];
-    yv[2] = R(0) - lx[-55] * yv[1];
-    l = yv[2] * dinv[-7]; d -= l * yv[2]; lx[-43] = l;
+    yv[2] = R(0) - lv[-55] * yv[1];
+    l = yv[2] * pinv[-7]; d -= l * yv[2]; lv[-43] = l;
     f1 -= l * y1[-7]; f2 -= l * y2[-7];
-    yv[3] = R(0) - lx[-129] * yv[0];
-    l = yv[3] * dinv[-5]; d -= l * yv[3]; lx[-32] = l;
+    yv[3] = R(0) - lv[-129] * yv[0];
+    l = yv[3] * pinv[-5]; d -= l * yv[3]; lv[-32] = l;
     f1 -= l * y1[-5]; f2 -= l * y2[-5];
-    yv[4] = R(0) - lx[-36] * yv[3];
-    l = yv[4] * dinv[-4]; d -= l * yv[4]; lx[-26] = l;
+    yv[4] = R(0) - lv[-36] * yv[3];
+    l = yv[4] * pinv[-4]; d -= l * yv[4]; lv[-26] = l;
     f1 -= l * y1[-4]; f2 -= l * y2[-4];
-    yv[5] = R(0) - lx[-54] * yv[1] - lx[-48] * yv[2] - lx[-35] * yv[3] - lx[-30] * yv[4];
-    l = yv[5] * dinv[-3]; d -= l * yv[5]; lx[-18] = l;
+    yv[5] = R(0) - lv[-54] * yv[1] - lv[-48] * yv[2] - lv[-35] * yv[3] - lv[-30] * yv[4];
+    l = yv[5] * pinv[-3]; d -= l * yv[5]; lv[-18] = l;
     f1 -= l * y1[-3]; f2 -= l * y2[-3];
-    yv[6] = R(0) - lx[-53] * yv[1] - lx[-47] * yv[2] - lx[-23] * yv[5];
-    l = yv[6] * dinv[-2]; d -= l * yv[6]; lx[-11] = l;
+    yv[6] = R(0) - lv[-53] * yv[1] - lv[-47] * yv[2] - lv[-23] * yv[5];
+    l = yv[6] * pinv[-2]; d -= l * yv[6]; lv[-11] = l;
     f1 -= l * y1[-2]; f2 -= l * y2[-2];
-    yv[7] = R(0) - lx[-34] * yv[3] - lx[-29] * yv[4] - lx[-22] * yv[5] - lx[-15] * yv[6];
-    l = yv[7] * dinv[-1]; d -= l * yv[7]; lx[-4] = l;
+    yv[7] = R(0) - lv[-34] * yv[3] - lv[-29] * yv[4] - lv[-22] * yv[5] - lv[-15] * yv[6];
+    l = yv[7] * pinv[-1]; d -= l * yv[7]; lv[-4] = l;
     f1 -= l * y1[-1]; f2 -= l * y2[-1];
-    yv[8] = R(0) - lx[-52] * yv[1] - lx[-46] * yv[2] - lx[-28] * yv[4] - lx[-21] * yv[5]
-        - lx[-14] * yv[6] - lx[-7] * yv[7];
-    l = yv[8] * dinv[22]; d -= l * yv[8]; lx[62] = l;
+    yv[8] = R(0) - lv[-52] * yv[1] - lv[-46] * yv[2] - lv[-28] * yv[4] - lv[-21] * yv[5]
+        - lv[-14] * yv[6] - lv[-7] * yv[7];
+    l = yv[8] * pinv[22]; d -= l * yv[8]; lv[62] = l;
     f1 -= l * y1[22]; f2 -= l * y2[22];
-    yv[9] = R(0) - lx[-51] * yv[1] - lx[-45] * yv[2] - lx[-20] * yv[5] - lx[-13] * yv[6]
-        - lx[-6] * yv[7] - lx[60] * yv[8];
-    l = yv[9] * dinv[23]; d -= l * yv[9]; lx[68] = l;
+    yv[9] = R(0) - lv[-51] * yv[1] - lv[-45] * yv[2] - lv[-20] * yv[5] - lv[-13] * yv[6]
+        - lv[-6] * yv[7] - lv[60] * yv[8];
+    l = yv[9] * pinv[23]; d -= l * yv[9]; lv[68] = l;
     f1 -= l * y1[23]; f2 -= l * y2[23];
-    yv[10] = R(0) - lx[-128] * yv[0] - lx[-50] * yv[1] - lx[-44] * yv[2] - lx[-33] * yv[3]
-        - lx[-27] * yv[4] - lx[-19] * yv[5] - lx[-12] * yv[6] - lx[-5] * yv[7] - lx[61] * yv[8]
-        - lx[67] * yv[9];
-    l = yv[10] * dinv[24]; d -= l * yv[10]; lx[74] = l;
+    yv[10] = R(0) - lv[-128] * yv[0] - lv[-50] * yv[1] - lv[-44] * yv[2] - lv[-33] * yv[3]
+        - lv[-27] * yv[4] - lv[-19] * yv[5] - lv[-12] * yv[6] - lv[-5] * yv[7] - lv[61] * yv[8]
+        - lv[67] * yv[9];
+    l = yv[10] * pinv[24]; d -= l * yv[10]; lv[74] = l;
     f1 -= l * y1[24]; f2 -= l * y2[24];
     y1[25] = f1; y2[25] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[25] = R(1) / d;
+    pinv[25] = R(1) / d;
     /* row 26 */
     d = kk[62];
     f1 = w->rhs[perm[k0 + 26]];
     f2 = w->rhs2[perm[k0 + 26]];
     yv[0] = kk[60];
-    l = yv[0] * dinv[-20]; d -= l * yv[0]; lx[-124] = l;
+    l = yv[0] * pinv[-20]; d -= l * yv[0]; lv[-124] = l;
     f1 -= l * y1[-20]; f2 -= l * y2[-20];
     yv[1] = kk[61];
-    l = yv[1] * dinv[-7]; d -= l * yv[1]; lx[-42] = l;
+    l = yv[1] * pinv[-7]; d -= l * yv[1]; lv[-42] = l;
     f1 -= l * y1[-7]; f2 -= l * y2[-7];
-    yv[2] = R(0) - lx[-126] * yv[0];
-    l = yv[2] * dinv[-4]; d -= l * yv[2]; lx[-25] = l;
+    yv[2] = R(0) - lv[-126] * yv[0];
+    l = yv[2] * pinv[-4]; d -= l * yv[2]; lv[-25] = l;
     f1 -= l * y1[-4]; f2 -= l * y2[-4];
-    yv[3] = R(0) - lx[-48] * yv[1] - lx[-30] * yv[2];
-    l = yv[3] * dinv[-3]; d -= l * yv[3]; lx[-17] = l;
+    yv[3] = R(0) - lv[-48] * yv[1] - lv[-30] * yv[2];
+    l = yv[3] * pinv[-3]; d -= l * yv[3]; lv[-17] = l;
     f1 -= l * y1[-3]; f2 -= l * y2[-3];
-    yv[4] = R(0) - lx[-47] * yv[1] - lx[-23] * yv[3];
-    l = yv[4] * dinv[-2]; d -= l * yv[4]; lx[-10] = l;
+    yv[4] = R(0) - lv[-47] * yv[1] - lv[-23] * yv[3];
+    l = yv[4] * pinv[-2]; d -= l * yv[4]; lv[-10] = l;
     f1 -= l * y1[-2]; f2 -= l * y2[-2];
-    yv[5] = R(0) - lx[-29] * yv[2] - lx[-22] * yv[3] - lx[-15] * yv[4];
-    l = yv[5] * dinv[-1]; d -= l * yv[5]; lx[-3] = l;
+    yv[5] = R(0) - lv[-29] * yv[2] - lv[-22] * yv[3] - lv[-15] * yv[4];
+    l = yv[5] * pinv[-1]; d -= l * yv[5]; lv[-3] = l;
     f1 -= l * y1[-1]; f2 -= l * y2[-1];
-    yv[6] = R(0) - lx[-125] * yv[0] - lx[-46] * yv[1] - lx[-28] * yv[2] - lx[-21] * yv[3]
-        - lx[-14] * yv[4] - lx[-7] * yv[5];
-    l = yv[6] * dinv[22]; d -= l * yv[6]; lx[63] = l;
+    yv[6] = R(0) - lv[-125] * yv[0] - lv[-46] * yv[1] - lv[-28] * yv[2] - lv[-21] * yv[3]
+        - lv[-14] * yv[4] - lv[-7] * yv[5];
+    l = yv[6] * pinv[22]; d -= l * yv[6]; lv[63] = l;
     f1 -= l * y1[22]; f2 -= l * y2[22];
-    yv[7] = R(0) - lx[-45] * yv[1] - lx[-20] * yv[3] - lx[-13] * yv[4] - lx[-6] * yv[5]
-        - lx[60] * yv[6];
-    l = yv[7] * dinv[23]; d -= l * yv[7]; lx[69] = l;
+    yv[7] = R(0) - lv[-45] * yv[1] - lv[-20] * yv[3] - lv[-13] * yv[4] - lv[-6] * yv[5]
+        - lv[60] * yv[6];
+    l = yv[7] * pinv[23]; d -= l * yv[7]; lv[69] = l;
     f1 -= l * y1[23]; f2 -= l * y2[23];
-    yv[8] = R(0) - lx[-44] * yv[1] - lx[-27] * yv[2] - lx[-19] * yv[3] - lx[-12] * yv[4]
-        - lx[-5] * yv[5] - lx[61] * yv[6] - lx[67] * yv[7];
-    l = yv[8] * dinv[24]; d -= l * yv[8]; lx[75] = l;
+    yv[8] = R(0) - lv[-44] * yv[1] - lv[-27] * yv[2] - lv[-19] * yv[3] - lv[-12] * yv[4]
+        - lv[-5] * yv[5] - lv[61] * yv[6] - lv[67] * yv[7];
+    l = yv[8] * pinv[24]; d -= l * yv[8]; lv[75] = l;
     f1 -= l * y1[24]; f2 -= l * y2[24];
-    yv[9] = R(0) - lx[-43] * yv[1] - lx[-26] * yv[2] - lx[-18] * yv[3] - lx[-11] * yv[4]
-        - lx[-4] * yv[5] - lx[62] * yv[6] - lx[68] * yv[7] - lx[74] * yv[8];
-    l = yv[9] * dinv[25]; d -= l * yv[9]; lx[81] = l;
+    yv[9] = R(0) - lv[-43] * yv[1] - lv[-26] * yv[2] - lv[-18] * yv[3] - lv[-11] * yv[4]
+        - lv[-4] * yv[5] - lv[62] * yv[6] - lv[68] * yv[7] - lv[74] * yv[8];
+    l = yv[9] * pinv[25]; d -= l * yv[9]; lv[81] = l;
     f1 -= l * y1[25]; f2 -= l * y2[25];
     y1[26] = f1; y2[26] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[26] = R(1) / d;
+    pinv[26] = R(1) / d;
     /* row 27 */
     d = kk[65];
     f1 = w->rhs[perm[k0 + 27]];
     f2 = w->rhs2[perm[k0 + 27]];
     yv[0] = kk[63];
-    l = yv[0] * dinv[-2]; d -= l * yv[0]; lx[-9] = l;
+    l = yv[0] * pinv[-2]; d -= l * yv[0]; lv[-9] = l;
     f1 -= l * y1[-2]; f2 -= l * y2[-2];
-    yv[1] = kk[64] - lx[-15] * yv[0];
-    l = yv[1] * dinv[-1]; d -= l * yv[1]; lx[-2] = l;
+    yv[1] = kk[64] - lv[-15] * yv[0];
+    l = yv[1] * pinv[-1]; d -= l * yv[1]; lv[-2] = l;
     f1 -= l * y1[-1]; f2 -= l * y2[-1];
-    yv[2] = R(0) - lx[-14] * yv[0] - lx[-7] * yv[1];
-    l = yv[2] * dinv[22]; d -= l * yv[2]; lx[64] = l;
+    yv[2] = R(0) - lv[-14] * yv[0] - lv[-7] * yv[1];
+    l = yv[2] * pinv[22]; d -= l * yv[2]; lv[64] = l;
     f1 -= l * y1[22]; f2 -= l * y2[22];
-    yv[3] = R(0) - lx[-13] * yv[0] - lx[-6] * yv[1] - lx[60] * yv[2];
-    l = yv[3] * dinv[23]; d -= l * yv[3]; lx[70] = l;
+    yv[3] = R(0) - lv[-13] * yv[0] - lv[-6] * yv[1] - lv[60] * yv[2];
+    l = yv[3] * pinv[23]; d -= l * yv[3]; lv[70] = l;
     f1 -= l * y1[23]; f2 -= l * y2[23];
-    yv[4] = R(0) - lx[-12] * yv[0] - lx[-5] * yv[1] - lx[61] * yv[2] - lx[67] * yv[3];
-    l = yv[4] * dinv[24]; d -= l * yv[4]; lx[76] = l;
+    yv[4] = R(0) - lv[-12] * yv[0] - lv[-5] * yv[1] - lv[61] * yv[2] - lv[67] * yv[3];
+    l = yv[4] * pinv[24]; d -= l * yv[4]; lv[76] = l;
     f1 -= l * y1[24]; f2 -= l * y2[24];
-    yv[5] = R(0) - lx[-11] * yv[0] - lx[-4] * yv[1] - lx[62] * yv[2] - lx[68] * yv[3]
-        - lx[74] * yv[4];
-    l = yv[5] * dinv[25]; d -= l * yv[5]; lx[82] = l;
+    yv[5] = R(0) - lv[-11] * yv[0] - lv[-4] * yv[1] - lv[62] * yv[2] - lv[68] * yv[3]
+        - lv[74] * yv[4];
+    l = yv[5] * pinv[25]; d -= l * yv[5]; lv[82] = l;
     f1 -= l * y1[25]; f2 -= l * y2[25];
-    yv[6] = R(0) - lx[-10] * yv[0] - lx[-3] * yv[1] - lx[63] * yv[2] - lx[69] * yv[3]
-        - lx[75] * yv[4] - lx[81] * yv[5];
-    l = yv[6] * dinv[26]; d -= l * yv[6]; lx[88] = l;
+    yv[6] = R(0) - lv[-10] * yv[0] - lv[-3] * yv[1] - lv[63] * yv[2] - lv[69] * yv[3]
+        - lv[75] * yv[4] - lv[81] * yv[5];
+    l = yv[6] * pinv[26]; d -= l * yv[6]; lv[88] = l;
     f1 -= l * y1[26]; f2 -= l * y2[26];
     y1[27] = f1; y2[27] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[27] = R(1) / d;
+    pinv[27] = R(1) / d;
     /* row 28 */
     d = kk[68];
     f1 = w->rhs[perm[k0 + 28]];
     f2 = w->rhs2[perm[k0 + 28]];
     yv[0] = kk[66];
-    l = yv[0] * dinv[16]; d -= l * yv[0]; lx[40] = l;
+    l = yv[0] * pinv[16]; d -= l * yv[0]; lv[40] = l;
     f1 -= l * y1[16]; f2 -= l * y2[16];
-    yv[1] = R(0) - lx[39] * yv[0];
-    l = yv[1] * dinv[21]; d -= l * yv[1]; lx[57] = l;
+    yv[1] = R(0) - lv[39] * yv[0];
+    l = yv[1] * pinv[21]; d -= l * yv[1]; lv[57] = l;
     f1 -= l * y1[21]; f2 -= l * y2[21];
     yv[2] = kk[67];
-    l = yv[2] * dinv[22]; d -= l * yv[2]; lx[65] = l;
+    l = yv[2] * pinv[22]; d -= l * yv[2]; lv[65] = l;
     f1 -= l * y1[22]; f2 -= l * y2[22];
-    yv[3] = R(0) - lx[60] * yv[2];
-    l = yv[3] * dinv[23]; d -= l * yv[3]; lx[71] = l;
+    yv[3] = R(0) - lv[60] * yv[2];
+    l = yv[3] * pinv[23]; d -= l * yv[3]; lv[71] = l;
     f1 -= l * y1[23]; f2 -= l * y2[23];
-    yv[4] = R(0) - lx[56] * yv[1] - lx[61] * yv[2] - lx[67] * yv[3];
-    l = yv[4] * dinv[24]; d -= l * yv[4]; lx[77] = l;
+    yv[4] = R(0) - lv[56] * yv[1] - lv[61] * yv[2] - lv[67] * yv[3];
+    l = yv[4] * pinv[24]; d -= l * yv[4]; lv[77] = l;
     f1 -= l * y1[24]; f2 -= l * y2[24];
-    yv[5] = R(0) - lx[62] * yv[2] - lx[68] * yv[3] - lx[74] * yv[4];
-    l = yv[5] * dinv[25]; d -= l * yv[5]; lx[83] = l;
+    yv[5] = R(0) - lv[62] * yv[2] - lv[68] * yv[3] - lv[74] * yv[4];
+    l = yv[5] * pinv[25]; d -= l * yv[5]; lv[83] = l;
     f1 -= l * y1[25]; f2 -= l * y2[25];
-    yv[6] = R(0) - lx[63] * yv[2] - lx[69] * yv[3] - lx[75] * yv[4] - lx[81] * yv[5];
-    l = yv[6] * dinv[26]; d -= l * yv[6]; lx[89] = l;
+    yv[6] = R(0) - lv[63] * yv[2] - lv[69] * yv[3] - lv[75] * yv[4] - lv[81] * yv[5];
+    l = yv[6] * pinv[26]; d -= l * yv[6]; lv[89] = l;
     f1 -= l * y1[26]; f2 -= l * y2[26];
-    yv[7] = R(0) - lx[64] * yv[2] - lx[70] * yv[3] - lx[76] * yv[4] - lx[82] * yv[5]
-        - lx[88] * yv[6];
-    l = yv[7] * dinv[27]; d -= l * yv[7]; lx[95] = l;
+    yv[7] = R(0) - lv[64] * yv[2] - lv[70] * yv[3] - lv[76] * yv[4] - lv[82] * yv[5]
+        - lv[88] * yv[6];
+    l = yv[7] * pinv[27]; d -= l * yv[7]; lv[95] = l;
     f1 -= l * y1[27]; f2 -= l * y2[27];
     y1[28] = f1; y2[28] = f2;
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[28] = R(1) / d;
+    pinv[28] = R(1) / d;
     /* row 29 */
     d = kk[71];
     f1 = w->rhs[perm[k0 + 29]];
     f2 = w->rhs2[perm[k0 + 29]];
     yv[0] = kk[69];
-    l = yv[0] * dinv[14]; d -= l * yv[0]; lx[35] = l;
+    l = yv[0] * pinv[14]; d -= l * yv[0]; lv[35] = l;
     f1 -= l * y1[14]; f2 -= l * y2[14];
-    yv[1] = R(0) - lx[33] * yv[0];
-    l = yv[1] * dinv[15]; d -= l * yv[1]; lx[38] = l;
+    yv[1] = R(0) - lv[33] * yv[0];
+    l = yv[1] * pinv[15]; d -= l * yv[1]; lv[38] = l;
     f1 -= l * y1[15]; f2 -= l * y2[15];
-    yv[2] = R(0) - lx[34] * yv[0] - lx[36] * yv[1];
-    l = yv[2] * dinv[16]; d -= l * yv[2]; lx[41] = l;
+    yv[2] = R(0) - lv[34] * yv[0] - lv[36] * yv[1];
+    l = yv[2] * pinv[16]; d -= l * yv[2]; lv[41] = l;
     f1 -= l * y1[16]; f2 -= l * y2[16];
-    yv[3] = R(0) - lx[37] * yv[1] - lx[39] * yv[2];
-    l = yv[3] * dinv[21]; d -= l * yv[3]; lx[58] = l;
+    yv[3] = R(0) - lv[37] * yv[1] - lv[39] * yv[2];
+    l = yv[3] * pinv[21]; d -= l * yv[3]; lv[58] = l;
     f1 -= l * y1[21]; f2 -= l * y2[21];
     yv[4] = kk[70];
-    l = yv[4] * dinv[23]; d -= l * yv[4]; lx[72] = l;
+    l = yv[4] * pinv[23]; d -= l * yv[4]; lv[72] = l;
     f1 -= l * y1[23]; f2 -= l * y2[23];
-    yv[5] = R(0) - lx[56] * yv[3] - lx[67] * yv[4];
-    l = yv[5] * dinv[24]; d -= l * yv[5]; lx[78] = l;
+    yv[5] = R(0) - lv[56] * yv[3] - lv[67] * yv[4];
+    l = yv[5] * pinv[24]; d -= l * yv[5]; lv[78] = l;
     f1 -= l * y1[24]; f2 -= l * y2[24];
-    yv[6] = R(0) - lx[68] * yv[4] - lx[74] * yv[5];
-    l = yv[6] * dinv[25]; d -= l * yv[6]; lx[84] = l;
+    yv[6] = R(0) - lv[68] * yv[4] - lv[74] * yv[5];
+    l = yv[6] * pinv[25]; d -= l * yv[6]; lv[84] = l;
     f1 -= l * y1[25]; f2 -= l * y2[25];
-    yv[7] = R(0) - lx[69] * yv[4] - lx[75] * yv[5] - lx[81] * yv[6];
-    l = yv[7] * dinv[26]; d -= l * yv[7]; lx[90] = l;
+    yv[7] = R(0) - lv[69] * yv[4] - lv[75] * yv[5] - lv[81] * yv[6];
+    l = yv[7] * pinv[26]; d -= l * yv[7]; lv[90] = l;
     f1 -= l * y1[26]; f2 -= l * y2[26];
-    yv[8] = R(0) - lx[70] * yv[4] - lx[76] * yv[5] - lx[82] * yv[6] - lx[88] * yv[7];
-    l = yv[8] * dinv[27]; d -= l * yv[8]; lx[96] = l;
+    yv[8] = R(0) - lv[70] * yv[4] - lv[76] * yv[5] - lv[82] * yv[6] - lv[88] * yv[7];
+    l = yv[8] * pinv[27]; d -= l * yv[8]; lv[96] = l;
     f1 -= l * y1[27]; f2 -= l * y2[27];
-    yv[9] = R(0) - lx[40] * yv[2] - lx[57] * yv[3] - lx[71] * yv[4] - lx[77] * yv[5]
-        - lx[83] * yv[6] - lx[89] * yv[7] - lx[95] * yv[8];
-    l = yv[9] * dinv[28]; d -= l * yv[9]; lx[102] = l;
+    yv[9] = R(0) - lv[40] * yv[2] - lv[57] * yv[3] - lv[71] * yv[4] - lv[77] * yv[5]
+        - lv[83] * yv[6] - lv[89] * yv[7] - lv[95] * yv[8];
+    l = yv[9] * pinv[28]; d -= l * yv[9]; lv[102] = l;
     f1 -= l * y1[28]; f2 -= l * y2[28];
     y1[29] = f1; y2[29] = f2;
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[29] = R(1) / d;
+    pinv[29] = R(1) / d;
     /* row 30 */
     d = kk[74];
     f1 = w->rhs[perm[k0 + 30]];
     f2 = w->rhs2[perm[k0 + 30]];
     yv[0] = kk[72];
-    l = yv[0] * dinv[11]; d -= l * yv[0]; lx[26] = l;
+    l = yv[0] * pinv[11]; d -= l * yv[0]; lv[26] = l;
     f1 -= l * y1[11]; f2 -= l * y2[11];
-    yv[1] = R(0) - lx[24] * yv[0];
-    l = yv[1] * dinv[12]; d -= l * yv[1]; lx[28] = l;
+    yv[1] = R(0) - lv[24] * yv[0];
+    l = yv[1] * pinv[12]; d -= l * yv[1]; lv[28] = l;
     f1 -= l * y1[12]; f2 -= l * y2[12];
-    yv[2] = R(0) - lx[25] * yv[0] - lx[27] * yv[1];
-    l = yv[2] * dinv[13]; d -= l * yv[2]; lx[30] = l;
+    yv[2] = R(0) - lv[25] * yv[0] - lv[27] * yv[1];
+    l = yv[2] * pinv[13]; d -= l * yv[2]; lv[30] = l;
     f1 -= l * y1[13]; f2 -= l * y2[13];
     yv[3] = kk[73];
-    l = yv[3] * dinv[25]; d -= l * yv[3]; lx[85] = l;
+    l = yv[3] * pinv[25]; d -= l * yv[3]; lv[85] = l;
     f1 -= l * y1[25]; f2 -= l * y2[25];
-    yv[4] = R(0) - lx[81] * yv[3];
-    l = yv[4] * dinv[26]; d -= l * yv[4]; lx[91] = l;
+    yv[4] = R(0) - lv[81] * yv[3];
+    l = yv[4] * pinv[26]; d -= l * yv[4]; lv[91] = l;
     f1 -= l * y1[26]; f2 -= l * y2[26];
-    yv[5] = R(0) - lx[82] * yv[3] - lx[88] * yv[4];
-    l = yv[5] * dinv[27]; d -= l * yv[5]; lx[97] = l;
+    yv[5] = R(0) - lv[82] * yv[3] - lv[88] * yv[4];
+    l = yv[5] * pinv[27]; d -= l * yv[5]; lv[97] = l;
     f1 -= l * y1[27]; f2 -= l * y2[27];
-    yv[6] = R(0) - lx[83] * yv[3] - lx[89] * yv[4] - lx[95] * yv[5];
-    l = yv[6] * dinv[28]; d -= l * yv[6]; lx[103] = l;
+    yv[6] = R(0) - lv[83] * yv[3] - lv[89] * yv[4] - lv[95] * yv[5];
+    l = yv[6] * pinv[28]; d -= l * yv[6]; lv[103] = l;
     f1 -= l * y1[28]; f2 -= l * y2[28];
-    yv[7] = R(0) - lx[84] * yv[3] - lx[90] * yv[4] - lx[96] * yv[5] - lx[102] * yv[6];
-    l = yv[7] * dinv[29]; d -= l * yv[7]; lx[109] = l;
+    yv[7] = R(0) - lv[84] * yv[3] - lv[90] * yv[4] - lv[96] * yv[5] - lv[102] * yv[6];
+    l = yv[7] * pinv[29]; d -= l * yv[7]; lv[109] = l;
     f1 -= l * y1[29]; f2 -= l * y2[29];
     y1[30] = f1; y2[30] = f2;
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[30] = R(1) / d;
+    pinv[30] = R(1) / d;
     /* row 31 */
     d = kk[77];
     f1 = w->rhs[perm[k0 + 31]];
     f2 = w->rhs2[perm[k0 + 31]];
     yv[0] = kk[75];
-    l = yv[0] * dinv[12]; d -= l * yv[0]; lx[29] = l;
+    l = yv[0] * pinv[12]; d -= l * yv[0]; lv[29] = l;
     f1 -= l * y1[12]; f2 -= l * y2[12];
-    yv[1] = R(0) - lx[27] * yv[0];
-    l = yv[1] * dinv[13]; d -= l * yv[1]; lx[31] = l;
+    yv[1] = R(0) - lv[27] * yv[0];
+    l = yv[1] * pinv[13]; d -= l * yv[1]; lv[31] = l;
     f1 -= l * y1[13]; f2 -= l * y2[13];
     yv[2] = kk[76];
-    l = yv[2] * dinv[26]; d -= l * yv[2]; lx[92] = l;
+    l = yv[2] * pinv[26]; d -= l * yv[2]; lv[92] = l;
     f1 -= l * y1[26]; f2 -= l * y2[26];
-    yv[3] = R(0) - lx[88] * yv[2];
-    l = yv[3] * dinv[27]; d -= l * yv[3]; lx[98] = l;
+    yv[3] = R(0) - lv[88] * yv[2];
+    l = yv[3] * pinv[27]; d -= l * yv[3]; lv[98] = l;
     f1 -= l * y1[27]; f2 -= l * y2[27];
-    yv[4] = R(0) - lx[89] * yv[2] - lx[95] * yv[3];
-    l = yv[4] * dinv[28]; d -= l * yv[4]; lx[104] = l;
+    yv[4] = R(0) - lv[89] * yv[2] - lv[95] * yv[3];
+    l = yv[4] * pinv[28]; d -= l * yv[4]; lv[104] = l;
     f1 -= l * y1[28]; f2 -= l * y2[28];
-    yv[5] = R(0) - lx[90] * yv[2] - lx[96] * yv[3] - lx[102] * yv[4];
-    l = yv[5] * dinv[29]; d -= l * yv[5]; lx[110] = l;
+    yv[5] = R(0) - lv[90] * yv[2] - lv[96] * yv[3] - lv[102] * yv[4];
+    l = yv[5] * pinv[29]; d -= l * yv[5]; lv[110] = l;
     f1 -= l * y1[29]; f2 -= l * y2[29];
-    yv[6] = R(0) - lx[28] * yv[0] - lx[30] * yv[1] - lx[91] * yv[2] - lx[97] * yv[3]
-        - lx[103] * yv[4] - lx[109] * yv[5];
-    l = yv[6] * dinv[30]; d -= l * yv[6]; lx[116] = l;
+    yv[6] = R(0) - lv[28] * yv[0] - lv[30] * yv[1] - lv[91] * yv[2] - lv[97] * yv[3]
+        - lv[103] * yv[4] - lv[109] * yv[5];
+    l = yv[6] * pinv[30]; d -= l * yv[6]; lv[116] = l;
     f1 -= l * y1[30]; f2 -= l * y2[30];
     y1[31] = f1; y2[31] = f2;
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[31] = R(1) / d;
+    pinv[31] = R(1) / d;
     /* row 32 */
     d = kk[83];
     f1 = w->rhs[perm[k0 + 32]];
     f2 = w->rhs2[perm[k0 + 32]];
     yv[0] = kk[78];
-    l = yv[0] * dinv[5]; d -= l * yv[0]; lx[11] = l;
+    l = yv[0] * pinv[5]; d -= l * yv[0]; lv[11] = l;
     f1 -= l * y1[5]; f2 -= l * y2[5];
     yv[1] = kk[79];
-    l = yv[1] * dinv[6]; d -= l * yv[1]; lx[13] = l;
+    l = yv[1] * pinv[6]; d -= l * yv[1]; lv[13] = l;
     f1 -= l * y1[6]; f2 -= l * y2[6];
     yv[2] = kk[80];
-    l = yv[2] * dinv[7]; d -= l * yv[2]; lx[16] = l;
+    l = yv[2] * pinv[7]; d -= l * yv[2]; lv[16] = l;
     f1 -= l * y1[7]; f2 -= l * y2[7];
-    yv[3] = kk[81] - lx[14] * yv[2];
-    l = yv[3] * dinv[8]; d -= l * yv[3]; lx[18] = l;
+    yv[3] = kk[81] - lv[14] * yv[2];
+    l = yv[3] * pinv[8]; d -= l * yv[3]; lv[18] = l;
     f1 -= l * y1[8]; f2 -= l * y2[8];
     yv[4] = kk[82];
-    l = yv[4] * dinv[9]; d -= l * yv[4]; lx[19] = l;
+    l = yv[4] * pinv[9]; d -= l * yv[4]; lv[19] = l;
     f1 -= l * y1[9]; f2 -= l * y2[9];
-    yv[5] = R(0) - lx[12] * yv[1] - lx[15] * yv[2] - lx[17] * yv[3];
-    l = yv[5] * dinv[10]; d -= l * yv[5]; lx[21] = l;
+    yv[5] = R(0) - lv[12] * yv[1] - lv[15] * yv[2] - lv[17] * yv[3];
+    l = yv[5] * pinv[10]; d -= l * yv[5]; lv[21] = l;
     f1 -= l * y1[10]; f2 -= l * y2[10];
-    yv[6] = R(0) - lx[10] * yv[0];
-    l = yv[6] * dinv[19]; d -= l * yv[6]; lx[49] = l;
+    yv[6] = R(0) - lv[10] * yv[0];
+    l = yv[6] * pinv[19]; d -= l * yv[6]; lv[49] = l;
     f1 -= l * y1[19]; f2 -= l * y2[19];
-    yv[7] = R(0) - lx[48] * yv[6];
-    l = yv[7] * dinv[20]; d -= l * yv[7]; lx[52] = l;
+    yv[7] = R(0) - lv[48] * yv[6];
+    l = yv[7] * pinv[20]; d -= l * yv[7]; lv[52] = l;
     f1 -= l * y1[20]; f2 -= l * y2[20];
     y1[32] = f1; y2[32] = f2;
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[32] = R(1) / d;
+    pinv[32] = R(1) / d;
     /* row 33 */
     d = kk[87];
     f1 = w->rhs[perm[k0 + 33]];
     f2 = w->rhs2[perm[k0 + 33]];
     yv[0] = kk[84];
-    l = yv[0] * dinv[17]; d -= l * yv[0]; lx[42] = l;
+    l = yv[0] * pinv[17]; d -= l * yv[0]; lv[42] = l;
     f1 -= l * y1[17]; f2 -= l * y2[17];
     yv[1] = kk[85];
-    l = yv[1] * dinv[19]; d -= l * yv[1]; lx[50] = l;
+    l = yv[1] * pinv[19]; d -= l * yv[1]; lv[50] = l;
     f1 -= l * y1[19]; f2 -= l * y2[19];
-    yv[2] = kk[86] - lx[48] * yv[1];
-    l = yv[2] * dinv[20]; d -= l * yv[2]; lx[53] = l;
+    yv[2] = kk[86] - lv[48] * yv[1];
+    l = yv[2] * pinv[20]; d -= l * yv[2]; lv[53] = l;
     f1 -= l * y1[20]; f2 -= l * y2[20];
-    yv[3] = R(0) - lx[49] * yv[1] - lx[52] * yv[2];
-    l = yv[3] * dinv[32]; d -= l * yv[3]; lx[130] = l;
+    yv[3] = R(0) - lv[49] * yv[1] - lv[52] * yv[2];
+    l = yv[3] * pinv[32]; d -= l * yv[3]; lv[130] = l;
     f1 -= l * y1[32]; f2 -= l * y2[32];
     y1[33] = f1; y2[33] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[33] = R(1) / d;
+    pinv[33] = R(1) / d;
     /* row 34 */
     d = kk[92];
     f1 = w->rhs[perm[k0 + 34]];
     f2 = w->rhs2[perm[k0 + 34]];
     yv[0] = kk[88];
-    l = yv[0] * dinv[18]; d -= l * yv[0]; lx[45] = l;
+    l = yv[0] * pinv[18]; d -= l * yv[0]; lv[45] = l;
     f1 -= l * y1[18]; f2 -= l * y2[18];
     yv[1] = kk[89];
-    l = yv[1] * dinv[19]; d -= l * yv[1]; lx[51] = l;
+    l = yv[1] * pinv[19]; d -= l * yv[1]; lv[51] = l;
     f1 -= l * y1[19]; f2 -= l * y2[19];
-    yv[2] = kk[90] - lx[48] * yv[1];
-    l = yv[2] * dinv[20]; d -= l * yv[2]; lx[54] = l;
+    yv[2] = kk[90] - lv[48] * yv[1];
+    l = yv[2] * pinv[20]; d -= l * yv[2]; lv[54] = l;
     f1 -= l * y1[20]; f2 -= l * y2[20];
-    yv[3] = R(0) - lx[49] * yv[1] - lx[52] * yv[2];
-    l = yv[3] * dinv[32]; d -= l * yv[3]; lx[131] = l;
+    yv[3] = R(0) - lv[49] * yv[1] - lv[52] * yv[2];
+    l = yv[3] * pinv[32]; d -= l * yv[3]; lv[131] = l;
     f1 -= l * y1[32]; f2 -= l * y2[32];
-    yv[4] = kk[91] - lx[50] * yv[1] - lx[53] * yv[2] - lx[130] * yv[3];
-    l = yv[4] * dinv[33]; d -= l * yv[4]; lx[135] = l;
+    yv[4] = kk[91] - lv[50] * yv[1] - lv[53] * yv[2] - lv[130] * yv[3];
+    l = yv[4] * pinv[33]; d -= l * yv[4]; lv[135] = l;
     f1 -= l * y1[33]; f2 -= l * y2[33];
     y1[34] = f1; y2[34] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[34] = R(1) / d;
+    pinv[34] = R(1) / d;
     /* row 35 */
     d = kk[96];
     f1 = w->rhs[perm[k0 + 35]];
     f2 = w->rhs2[perm[k0 + 35]];
     yv[0] = kk[93];
-    l = yv[0] * dinv[-28]; d -= l * yv[0]; lx[-148] = l;
+    l = yv[0] * pinv[-28]; d -= l * yv[0]; lv[-148] = l;
     f1 -= l * y1[-28]; f2 -= l * y2[-28];
-    yv[1] = kk[94] - lx[-150] * yv[0];
-    l = yv[1] * dinv[-6]; d -= l * yv[1]; lx[-37] = l;
+    yv[1] = kk[94] - lv[-150] * yv[0];
+    l = yv[1] * pinv[-6]; d -= l * yv[1]; lv[-37] = l;
     f1 -= l * y1[-6]; f2 -= l * y2[-6];
-    yv[2] = R(0) - lx[-41] * yv[1];
-    l = yv[2] * dinv[-5]; d -= l * yv[2]; lx[-31] = l;
+    yv[2] = R(0) - lv[-41] * yv[1];
+    l = yv[2] * pinv[-5]; d -= l * yv[2]; lv[-31] = l;
     f1 -= l * y1[-5]; f2 -= l * y2[-5];
-    yv[3] = R(0) - lx[-40] * yv[1] - lx[-36] * yv[2];
-    l = yv[3] * dinv[-4]; d -= l * yv[3]; lx[-24] = l;
+    yv[3] = R(0) - lv[-40] * yv[1] - lv[-36] * yv[2];
+    l = yv[3] * pinv[-4]; d -= l * yv[3]; lv[-24] = l;
     f1 -= l * y1[-4]; f2 -= l * y2[-4];
-    yv[4] = R(0) - lx[-149] * yv[0] - lx[-39] * yv[1] - lx[-35] * yv[2] - lx[-30] * yv[3];
-    l = yv[4] * dinv[-3]; d -= l * yv[4]; lx[-16] = l;
+    yv[4] = R(0) - lv[-149] * yv[0] - lv[-39] * yv[1] - lv[-35] * yv[2] - lv[-30] * yv[3];
+    l = yv[4] * pinv[-3]; d -= l * yv[4]; lv[-16] = l;
     f1 -= l * y1[-3]; f2 -= l * y2[-3];
-    yv[5] = R(0) - lx[-23] * yv[4];
-    l = yv[5] * dinv[-2]; d -= l * yv[5]; lx[-8] = l;
+    yv[5] = R(0) - lv[-23] * yv[4];
+    l = yv[5] * pinv[-2]; d -= l * yv[5]; lv[-8] = l;
     f1 -= l * y1[-2]; f2 -= l * y2[-2];
-    yv[6] = R(0) - lx[-38] * yv[1] - lx[-34] * yv[2] - lx[-29] * yv[3] - lx[-22] * yv[4]
-        - lx[-15] * yv[5];
-    l = yv[6] * dinv[-1]; d -= l * yv[6]; lx[-1] = l;
+    yv[6] = R(0) - lv[-38] * yv[1] - lv[-34] * yv[2] - lv[-29] * yv[3] - lv[-22] * yv[4]
+        - lv[-15] * yv[5];
+    l = yv[6] * pinv[-1]; d -= l * yv[6]; lv[-1] = l;
     f1 -= l * y1[-1]; f2 -= l * y2[-1];
     yv[7] = kk[95];
-    l = yv[7] * dinv[10]; d -= l * yv[7]; lx[22] = l;
+    l = yv[7] * pinv[10]; d -= l * yv[7]; lv[22] = l;
     f1 -= l * y1[10]; f2 -= l * y2[10];
-    yv[8] = R(0) - lx[-28] * yv[3] - lx[-21] * yv[4] - lx[-14] * yv[5] - lx[-7] * yv[6];
-    l = yv[8] * dinv[22]; d -= l * yv[8]; lx[66] = l;
+    yv[8] = R(0) - lv[-28] * yv[3] - lv[-21] * yv[4] - lv[-14] * yv[5] - lv[-7] * yv[6];
+    l = yv[8] * pinv[22]; d -= l * yv[8]; lv[66] = l;
     f1 -= l * y1[22]; f2 -= l * y2[22];
-    yv[9] = R(0) - lx[-20] * yv[4] - lx[-13] * yv[5] - lx[-6] * yv[6] - lx[60] * yv[8];
-    l = yv[9] * dinv[23]; d -= l * yv[9]; lx[73] = l;
+    yv[9] = R(0) - lv[-20] * yv[4] - lv[-13] * yv[5] - lv[-6] * yv[6] - lv[60] * yv[8];
+    l = yv[9] * pinv[23]; d -= l * yv[9]; lv[73] = l;
     f1 -= l * y1[23]; f2 -= l * y2[23];
-    yv[10] = R(0) - lx[-33] * yv[2] - lx[-27] * yv[3] - lx[-19] * yv[4] - lx[-12] * yv[5]
-        - lx[-5] * yv[6] - lx[61] * yv[8] - lx[67] * yv[9];
-    l = yv[10] * dinv[24]; d -= l * yv[10]; lx[79] = l;
+    yv[10] = R(0) - lv[-33] * yv[2] - lv[-27] * yv[3] - lv[-19] * yv[4] - lv[-12] * yv[5]
+        - lv[-5] * yv[6] - lv[61] * yv[8] - lv[67] * yv[9];
+    l = yv[10] * pinv[24]; d -= l * yv[10]; lv[79] = l;
     f1 -= l * y1[24]; f2 -= l * y2[24];
-    yv[11] = R(0) - lx[-32] * yv[2] - lx[-26] * yv[3] - lx[-18] * yv[4] - lx[-11] * yv[5]
-        - lx[-4] * yv[6] - lx[62] * yv[8] - lx[68] * yv[9] - lx[74] * yv[10];
-    l = yv[11] * dinv[25]; d -= l * yv[11]; lx[86] = l;
+    yv[11] = R(0) - lv[-32] * yv[2] - lv[-26] * yv[3] - lv[-18] * yv[4] - lv[-11] * yv[5]
+        - lv[-4] * yv[6] - lv[62] * yv[8] - lv[68] * yv[9] - lv[74] * yv[10];
+    l = yv[11] * pinv[25]; d -= l * yv[11]; lv[86] = l;
     f1 -= l * y1[25]; f2 -= l * y2[25];
-    yv[12] = R(0) - lx[-25] * yv[3] - lx[-17] * yv[4] - lx[-10] * yv[5] - lx[-3] * yv[6]
-        - lx[63] * yv[8] - lx[69] * yv[9] - lx[75] * yv[10] - lx[81] * yv[11];
-    l = yv[12] * dinv[26]; d -= l * yv[12]; lx[93] = l;
+    yv[12] = R(0) - lv[-25] * yv[3] - lv[-17] * yv[4] - lv[-10] * yv[5] - lv[-3] * yv[6]
+        - lv[63] * yv[8] - lv[69] * yv[9] - lv[75] * yv[10] - lv[81] * yv[11];
+    l = yv[12] * pinv[26]; d -= l * yv[12]; lv[93] = l;
     f1 -= l * y1[26]; f2 -= l * y2[26];
-    yv[13] = R(0) - lx[-9] * yv[5] - lx[-2] * yv[6] - lx[64] * yv[8] - lx[70] * yv[9]
-        - lx[76] * yv[10] - lx[82] * yv[11] - lx[88] * yv[12];
-    l = yv[13] * dinv[27]; d -= l * yv[13]; lx[99] = l;
+    yv[13] = R(0) - lv[-9] * yv[5] - lv[-2] * yv[6] - lv[64] * yv[8] - lv[70] * yv[9]
+        - lv[76] * yv[10] - lv[82] * yv[11] - lv[88] * yv[12];
+    l = yv[13] * pinv[27]; d -= l * yv[13]; lv[99] = l;
     f1 -= l * y1[27]; f2 -= l * y2[27];
-    yv[14] = R(0) - lx[65] * yv[8] - lx[71] * yv[9] - lx[77] * yv[10] - lx[83] * yv[11]
-        - lx[89] * yv[12] - lx[95] * yv[13];
-    l = yv[14] * dinv[28]; d -= l * yv[14]; lx[105] = l;
+    yv[14] = R(0) - lv[65] * yv[8] - lv[71] * yv[9] - lv[77] * yv[10] - lv[83] * yv[11]
+        - lv[89] * yv[12] - lv[95] * yv[13];
+    l = yv[14] * pinv[28]; d -= l * yv[14]; lv[105] = l;
     f1 -= l * y1[28]; f2 -= l * y2[28];
-    yv[15] = R(0) - lx[72] * yv[9] - lx[78] * yv[10] - lx[84] * yv[11] - lx[90] * yv[12]
-        - lx[96] * yv[13] - lx[102] * yv[14];
-    l = yv[15] * dinv[29]; d -= l * yv[15]; lx[111] = l;
+    yv[15] = R(0) - lv[72] * yv[9] - lv[78] * yv[10] - lv[84] * yv[11] - lv[90] * yv[12]
+        - lv[96] * yv[13] - lv[102] * yv[14];
+    l = yv[15] * pinv[29]; d -= l * yv[15]; lv[111] = l;
     f1 -= l * y1[29]; f2 -= l * y2[29];
-    yv[16] = R(0) - lx[85] * yv[11] - lx[91] * yv[12] - lx[97] * yv[13] - lx[103] * yv[14]
-        - lx[109] * yv[15];
-    l = yv[16] * dinv[30]; d -= l * yv[16]; lx[117] = l;
+    yv[16] = R(0) - lv[85] * yv[11] - lv[91] * yv[12] - lv[97] * yv[13] - lv[103] * yv[14]
+        - lv[109] * yv[15];
+    l = yv[16] * pinv[30]; d -= l * yv[16]; lv[117] = l;
     f1 -= l * y1[30]; f2 -= l * y2[30];
-    yv[17] = R(0) - lx[92] * yv[12] - lx[98] * yv[13] - lx[104] * yv[14] - lx[110] * yv[15]
-        - lx[116] * yv[16];
-    l = yv[17] * dinv[31]; d -= l * yv[17]; lx[123] = l;
+    yv[17] = R(0) - lv[92] * yv[12] - lv[98] * yv[13] - lv[104] * yv[14] - lv[110] * yv[15]
+        - lv[116] * yv[16];
+    l = yv[17] * pinv[31]; d -= l * yv[17]; lv[123] = l;
     f1 -= l * y1[31]; f2 -= l * y2[31];
-    yv[18] = R(0) - lx[21] * yv[7];
-    l = yv[18] * dinv[32]; d -= l * yv[18]; lx[132] = l;
+    yv[18] = R(0) - lv[21] * yv[7];
+    l = yv[18] * pinv[32]; d -= l * yv[18]; lv[132] = l;
     f1 -= l * y1[32]; f2 -= l * y2[32];
-    yv[19] = R(0) - lx[130] * yv[18];
-    l = yv[19] * dinv[33]; d -= l * yv[19]; lx[136] = l;
+    yv[19] = R(0) - lv[130] * yv[18];
+    l = yv[19] * pinv[33]; d -= l * yv[19]; lv[136] = l;
     f1 -= l * y1[33]; f2 -= l * y2[33];
-    yv[20] = R(0) - lx[131] * yv[18] - lx[135] * yv[19];
-    l = yv[20] * dinv[34]; d -= l * yv[20]; lx[141] = l;
+    yv[20] = R(0) - lv[131] * yv[18] - lv[135] * yv[19];
+    l = yv[20] * pinv[34]; d -= l * yv[20]; lv[141] = l;
     f1 -= l * y1[34]; f2 -= l * y2[34];
     y1[35] = f1; y2[35] = f2;
     if (pivot_fix(w, st, &d, R(-1)) != 0) {
         return -1;
     }
-    dinv[35] = R(1) / d;
+    pinv[35] = R(1) / d;
     /* row 36 */
     d = kk[99];
     f1 = w->rhs[perm[k0 + 36]];
     f2 = w->rhs2[perm[k0 + 36]];
     yv[0] = kk[97];
-    l = yv[0] * dinv[13]; d -= l * yv[0]; lx[32] = l;
+    l = yv[0] * pinv[13]; d -= l * yv[0]; lv[32] = l;
     f1 -= l * y1[13]; f2 -= l * y2[13];
     yv[1] = kk[98];
-    l = yv[1] * dinv[27]; d -= l * yv[1]; lx[100] = l;
+    l = yv[1] * pinv[27]; d -= l * yv[1]; lv[100] = l;
     f1 -= l * y1[27]; f2 -= l * y2[27];
-    yv[2] = R(0) - lx[95] * yv[1];
-    l = yv[2] * dinv[28]; d -= l * yv[2]; lx[106] = l;
+    yv[2] = R(0) - lv[95] * yv[1];
+    l = yv[2] * pinv[28]; d -= l * yv[2]; lv[106] = l;
     f1 -= l * y1[28]; f2 -= l * y2[28];
-    yv[3] = R(0) - lx[96] * yv[1] - lx[102] * yv[2];
-    l = yv[3] * dinv[29]; d -= l * yv[3]; lx[112] = l;
+    yv[3] = R(0) - lv[96] * yv[1] - lv[102] * yv[2];
+    l = yv[3] * pinv[29]; d -= l * yv[3]; lv[112] = l;
     f1 -= l * y1[29]; f2 -= l * y2[29];
-    yv[4] = R(0) - lx[30] * yv[0] - lx[97] * yv[1] - lx[103] * yv[2] - lx[109] * yv[3];
-    l = yv[4] * dinv[30]; d -= l * yv[4]; lx[118] = l;
+    yv[4] = R(0) - lv[30] * yv[0] - lv[97] * yv[1] - lv[103] * yv[2] - lv[109] * yv[3];
+    l = yv[4] * pinv[30]; d -= l * yv[4]; lv[118] = l;
     f1 -= l * y1[30]; f2 -= l * y2[30];
-    yv[5] = R(0) - lx[31] * yv[0] - lx[98] * yv[1] - lx[104] * yv[2] - lx[110] * yv[3]
-        - lx[116] * yv[4];
-    l = yv[5] * dinv[31]; d -= l * yv[5]; lx[124] = l;
+    yv[5] = R(0) - lv[31] * yv[0] - lv[98] * yv[1] - lv[104] * yv[2] - lv[110] * yv[3]
+        - lv[116] * yv[4];
+    l = yv[5] * pinv[31]; d -= l * yv[5]; lv[124] = l;
     f1 -= l * y1[31]; f2 -= l * y2[31];
-    yv[6] = R(0) - lx[99] * yv[1] - lx[105] * yv[2] - lx[111] * yv[3] - lx[117] * yv[4]
-        - lx[123] * yv[5];
-    l = yv[6] * dinv[35]; d -= l * yv[6]; lx[148] = l;
+    yv[6] = R(0) - lv[99] * yv[1] - lv[105] * yv[2] - lv[111] * yv[3] - lv[117] * yv[4]
+        - lv[123] * yv[5];
+    l = yv[6] * pinv[35]; d -= l * yv[6]; lv[148] = l;
     f1 -= l * y1[35]; f2 -= l * y2[35];
     y1[36] = f1; y2[36] = f2;
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[36] = R(1) / d;
+    pinv[36] = R(1) / d;
     /* row 37 */
     d = kk[102];
     f1 = w->rhs[perm[k0 + 37]];
     f2 = w->rhs2[perm[k0 + 37]];
     yv[0] = kk[100];
-    l = yv[0] * dinv[9]; d -= l * yv[0]; lx[20] = l;
+    l = yv[0] * pinv[9]; d -= l * yv[0]; lv[20] = l;
     f1 -= l * y1[9]; f2 -= l * y2[9];
     yv[1] = kk[101];
-    l = yv[1] * dinv[20]; d -= l * yv[1]; lx[55] = l;
+    l = yv[1] * pinv[20]; d -= l * yv[1]; lv[55] = l;
     f1 -= l * y1[20]; f2 -= l * y2[20];
-    yv[2] = R(0) - lx[19] * yv[0] - lx[52] * yv[1];
-    l = yv[2] * dinv[32]; d -= l * yv[2]; lx[133] = l;
+    yv[2] = R(0) - lv[19] * yv[0] - lv[52] * yv[1];
+    l = yv[2] * pinv[32]; d -= l * yv[2]; lv[133] = l;
     f1 -= l * y1[32]; f2 -= l * y2[32];
-    yv[3] = R(0) - lx[53] * yv[1] - lx[130] * yv[2];
-    l = yv[3] * dinv[33]; d -= l * yv[3]; lx[137] = l;
+    yv[3] = R(0) - lv[53] * yv[1] - lv[130] * yv[2];
+    l = yv[3] * pinv[33]; d -= l * yv[3]; lv[137] = l;
     f1 -= l * y1[33]; f2 -= l * y2[33];
-    yv[4] = R(0) - lx[54] * yv[1] - lx[131] * yv[2] - lx[135] * yv[3];
-    l = yv[4] * dinv[34]; d -= l * yv[4]; lx[142] = l;
+    yv[4] = R(0) - lv[54] * yv[1] - lv[131] * yv[2] - lv[135] * yv[3];
+    l = yv[4] * pinv[34]; d -= l * yv[4]; lv[142] = l;
     f1 -= l * y1[34]; f2 -= l * y2[34];
-    yv[5] = R(0) - lx[132] * yv[2] - lx[136] * yv[3] - lx[141] * yv[4];
-    l = yv[5] * dinv[35]; d -= l * yv[5]; lx[149] = l;
+    yv[5] = R(0) - lv[132] * yv[2] - lv[136] * yv[3] - lv[141] * yv[4];
+    l = yv[5] * pinv[35]; d -= l * yv[5]; lv[149] = l;
     f1 -= l * y1[35]; f2 -= l * y2[35];
-    yv[6] = R(0) - lx[148] * yv[5];
-    l = yv[6] * dinv[36]; d -= l * yv[6]; lx[156] = l;
+    yv[6] = R(0) - lv[148] * yv[5];
+    l = yv[6] * pinv[36]; d -= l * yv[6]; lv[156] = l;
     f1 -= l * y1[36]; f2 -= l * y2[36];
     y1[37] = f1; y2[37] = f2;
     if (pivot_fix(w, st, &d, R(1)) != 0) {
         return -1;
     }
-    dinv[37] = R(1) / d;
+    pinv[37] = R(1) / d;
     return 0;
 }
 
-/* Forward sweep of rows k0..k0+SK_P-1 (as forward_rows, reading L from lx). */
+/* Forward sweep of rows k0..k0+SK_P-1 (as forward_rows, reading L from l_val). */
 static void forward_stage(const pdg_socp_work *w, const real *b, real *tb, int k0, int l0)
 {
-    const real *lx = w->lx + l0;
+    const real *lv = w->l_val + l0;
     real *t = tb + k0;
     t[0] = b[perm[k0 + 0]];
     t[1] = b[perm[k0 + 1]];
     t[2] = b[perm[k0 + 2]];
     t[3] = b[perm[k0 + 3]];
     t[4] = b[perm[k0 + 4]];
-    t[5] = b[perm[k0 + 5]] - lx[8] * t[4];
+    t[5] = b[perm[k0 + 5]] - lv[8] * t[4];
     t[6] = b[perm[k0 + 6]];
-    t[7] = b[perm[k0 + 7]] - lx[2] * t[2];
-    t[8] = b[perm[k0 + 8]] - lx[3] * t[2] - lx[14] * t[7];
+    t[7] = b[perm[k0 + 7]] - lv[2] * t[2];
+    t[8] = b[perm[k0 + 8]] - lv[3] * t[2] - lv[14] * t[7];
     t[9] = b[perm[k0 + 9]];
-    t[10] = b[perm[k0 + 10]] - lx[0] * t[0] - lx[1] * t[1] - lx[4] * t[2] - lx[12] * t[6]
-        - lx[15] * t[7] - lx[17] * t[8];
-    t[11] = b[perm[k0 + 11]] - lx[5] * t[3];
-    t[12] = b[perm[k0 + 12]] - lx[6] * t[3] - lx[24] * t[11];
-    t[13] = b[perm[k0 + 13]] - lx[7] * t[3] - lx[25] * t[11] - lx[27] * t[12];
+    t[10] = b[perm[k0 + 10]] - lv[0] * t[0] - lv[1] * t[1] - lv[4] * t[2] - lv[12] * t[6]
+        - lv[15] * t[7] - lv[17] * t[8];
+    t[11] = b[perm[k0 + 11]] - lv[5] * t[3];
+    t[12] = b[perm[k0 + 12]] - lv[6] * t[3] - lv[24] * t[11];
+    t[13] = b[perm[k0 + 13]] - lv[7] * t[3] - lv[25] * t[11] - lv[27] * t[12];
     t[14] = b[perm[k0 + 14]];
-    t[15] = b[perm[k0 + 15]] - lx[33] * t[14];
-    t[16] = b[perm[k0 + 16]] - lx[34] * t[14] - lx[36] * t[15];
+    t[15] = b[perm[k0 + 15]] - lv[33] * t[14];
+    t[16] = b[perm[k0 + 16]] - lv[34] * t[14] - lv[36] * t[15];
     t[17] = b[perm[k0 + 17]];
     t[18] = b[perm[k0 + 18]];
-    t[19] = b[perm[k0 + 19]] - lx[9] * t[4] - lx[10] * t[5];
-    t[20] = b[perm[k0 + 20]] - lx[48] * t[19];
-    t[21] = b[perm[k0 + 21]] - lx[37] * t[15] - lx[39] * t[16];
-    t[22] = b[perm[k0 + 22]] - lx[-125] * t[-20] - lx[-64] * t[-10] - lx[-58] * t[-9]
-        - lx[-52] * t[-8] - lx[-46] * t[-7] - lx[-28] * t[-4] - lx[-21] * t[-3]
-        - lx[-14] * t[-2] - lx[-7] * t[-1];
-    t[23] = b[perm[k0 + 23]] - lx[-57] * t[-9] - lx[-51] * t[-8] - lx[-45] * t[-7]
-        - lx[-20] * t[-3] - lx[-13] * t[-2] - lx[-6] * t[-1] - lx[60] * t[22];
-    t[24] = b[perm[k0 + 24]] - lx[-128] * t[-21] - lx[-112] * t[-17] - lx[-91] * t[-14]
-        - lx[-84] * t[-13] - lx[-77] * t[-12] - lx[-70] * t[-11] - lx[-63] * t[-10]
-        - lx[-56] * t[-9] - lx[-50] * t[-8] - lx[-44] * t[-7] - lx[-33] * t[-5]
-        - lx[-27] * t[-4] - lx[-19] * t[-3] - lx[-12] * t[-2] - lx[-5] * t[-1] - lx[56] * t[21]
-        - lx[61] * t[22] - lx[67] * t[23];
-    t[25] = b[perm[k0 + 25]] - lx[-127] * t[-21] - lx[-49] * t[-8] - lx[-43] * t[-7]
-        - lx[-32] * t[-5] - lx[-26] * t[-4] - lx[-18] * t[-3] - lx[-11] * t[-2] - lx[-4] * t[-1]
-        - lx[62] * t[22] - lx[68] * t[23] - lx[74] * t[24];
-    t[26] = b[perm[k0 + 26]] - lx[-124] * t[-20] - lx[-42] * t[-7] - lx[-25] * t[-4]
-        - lx[-17] * t[-3] - lx[-10] * t[-2] - lx[-3] * t[-1] - lx[63] * t[22] - lx[69] * t[23]
-        - lx[75] * t[24] - lx[81] * t[25];
-    t[27] = b[perm[k0 + 27]] - lx[-9] * t[-2] - lx[-2] * t[-1] - lx[64] * t[22] - lx[70] * t[23]
-        - lx[76] * t[24] - lx[82] * t[25] - lx[88] * t[26];
-    t[28] = b[perm[k0 + 28]] - lx[40] * t[16] - lx[57] * t[21] - lx[65] * t[22] - lx[71] * t[23]
-        - lx[77] * t[24] - lx[83] * t[25] - lx[89] * t[26] - lx[95] * t[27];
-    t[29] = b[perm[k0 + 29]] - lx[35] * t[14] - lx[38] * t[15] - lx[41] * t[16] - lx[58] * t[21]
-        - lx[72] * t[23] - lx[78] * t[24] - lx[84] * t[25] - lx[90] * t[26] - lx[96] * t[27]
-        - lx[102] * t[28];
-    t[30] = b[perm[k0 + 30]] - lx[26] * t[11] - lx[28] * t[12] - lx[30] * t[13] - lx[85] * t[25]
-        - lx[91] * t[26] - lx[97] * t[27] - lx[103] * t[28] - lx[109] * t[29];
-    t[31] = b[perm[k0 + 31]] - lx[29] * t[12] - lx[31] * t[13] - lx[92] * t[26] - lx[98] * t[27]
-        - lx[104] * t[28] - lx[110] * t[29] - lx[116] * t[30];
-    t[32] = b[perm[k0 + 32]] - lx[11] * t[5] - lx[13] * t[6] - lx[16] * t[7] - lx[18] * t[8]
-        - lx[19] * t[9] - lx[21] * t[10] - lx[49] * t[19] - lx[52] * t[20];
-    t[33] = b[perm[k0 + 33]] - lx[42] * t[17] - lx[50] * t[19] - lx[53] * t[20]
-        - lx[130] * t[32];
-    t[34] = b[perm[k0 + 34]] - lx[45] * t[18] - lx[51] * t[19] - lx[54] * t[20]
-        - lx[131] * t[32] - lx[135] * t[33];
-    t[35] = b[perm[k0 + 35]] - lx[-148] * t[-28] - lx[-37] * t[-6] - lx[-31] * t[-5]
-        - lx[-24] * t[-4] - lx[-16] * t[-3] - lx[-8] * t[-2] - lx[-1] * t[-1] - lx[22] * t[10]
-        - lx[66] * t[22] - lx[73] * t[23] - lx[79] * t[24] - lx[86] * t[25] - lx[93] * t[26]
-        - lx[99] * t[27] - lx[105] * t[28] - lx[111] * t[29] - lx[117] * t[30] - lx[123] * t[31]
-        - lx[132] * t[32] - lx[136] * t[33] - lx[141] * t[34];
-    t[36] = b[perm[k0 + 36]] - lx[32] * t[13] - lx[100] * t[27] - lx[106] * t[28]
-        - lx[112] * t[29] - lx[118] * t[30] - lx[124] * t[31] - lx[148] * t[35];
-    t[37] = b[perm[k0 + 37]] - lx[20] * t[9] - lx[55] * t[20] - lx[133] * t[32]
-        - lx[137] * t[33] - lx[142] * t[34] - lx[149] * t[35] - lx[156] * t[36];
+    t[19] = b[perm[k0 + 19]] - lv[9] * t[4] - lv[10] * t[5];
+    t[20] = b[perm[k0 + 20]] - lv[48] * t[19];
+    t[21] = b[perm[k0 + 21]] - lv[37] * t[15] - lv[39] * t[16];
+    t[22] = b[perm[k0 + 22]] - lv[-125] * t[-20] - lv[-64] * t[-10] - lv[-58] * t[-9]
+        - lv[-52] * t[-8] - lv[-46] * t[-7] - lv[-28] * t[-4] - lv[-21] * t[-3]
+        - lv[-14] * t[-2] - lv[-7] * t[-1];
+    t[23] = b[perm[k0 + 23]] - lv[-57] * t[-9] - lv[-51] * t[-8] - lv[-45] * t[-7]
+        - lv[-20] * t[-3] - lv[-13] * t[-2] - lv[-6] * t[-1] - lv[60] * t[22];
+    t[24] = b[perm[k0 + 24]] - lv[-128] * t[-21] - lv[-112] * t[-17] - lv[-91] * t[-14]
+        - lv[-84] * t[-13] - lv[-77] * t[-12] - lv[-70] * t[-11] - lv[-63] * t[-10]
+        - lv[-56] * t[-9] - lv[-50] * t[-8] - lv[-44] * t[-7] - lv[-33] * t[-5]
+        - lv[-27] * t[-4] - lv[-19] * t[-3] - lv[-12] * t[-2] - lv[-5] * t[-1] - lv[56] * t[21]
+        - lv[61] * t[22] - lv[67] * t[23];
+    t[25] = b[perm[k0 + 25]] - lv[-127] * t[-21] - lv[-49] * t[-8] - lv[-43] * t[-7]
+        - lv[-32] * t[-5] - lv[-26] * t[-4] - lv[-18] * t[-3] - lv[-11] * t[-2] - lv[-4] * t[-1]
+        - lv[62] * t[22] - lv[68] * t[23] - lv[74] * t[24];
+    t[26] = b[perm[k0 + 26]] - lv[-124] * t[-20] - lv[-42] * t[-7] - lv[-25] * t[-4]
+        - lv[-17] * t[-3] - lv[-10] * t[-2] - lv[-3] * t[-1] - lv[63] * t[22] - lv[69] * t[23]
+        - lv[75] * t[24] - lv[81] * t[25];
+    t[27] = b[perm[k0 + 27]] - lv[-9] * t[-2] - lv[-2] * t[-1] - lv[64] * t[22] - lv[70] * t[23]
+        - lv[76] * t[24] - lv[82] * t[25] - lv[88] * t[26];
+    t[28] = b[perm[k0 + 28]] - lv[40] * t[16] - lv[57] * t[21] - lv[65] * t[22] - lv[71] * t[23]
+        - lv[77] * t[24] - lv[83] * t[25] - lv[89] * t[26] - lv[95] * t[27];
+    t[29] = b[perm[k0 + 29]] - lv[35] * t[14] - lv[38] * t[15] - lv[41] * t[16] - lv[58] * t[21]
+        - lv[72] * t[23] - lv[78] * t[24] - lv[84] * t[25] - lv[90] * t[26] - lv[96] * t[27]
+        - lv[102] * t[28];
+    t[30] = b[perm[k0 + 30]] - lv[26] * t[11] - lv[28] * t[12] - lv[30] * t[13] - lv[85] * t[25]
+        - lv[91] * t[26] - lv[97] * t[27] - lv[103] * t[28] - lv[109] * t[29];
+    t[31] = b[perm[k0 + 31]] - lv[29] * t[12] - lv[31] * t[13] - lv[92] * t[26] - lv[98] * t[27]
+        - lv[104] * t[28] - lv[110] * t[29] - lv[116] * t[30];
+    t[32] = b[perm[k0 + 32]] - lv[11] * t[5] - lv[13] * t[6] - lv[16] * t[7] - lv[18] * t[8]
+        - lv[19] * t[9] - lv[21] * t[10] - lv[49] * t[19] - lv[52] * t[20];
+    t[33] = b[perm[k0 + 33]] - lv[42] * t[17] - lv[50] * t[19] - lv[53] * t[20]
+        - lv[130] * t[32];
+    t[34] = b[perm[k0 + 34]] - lv[45] * t[18] - lv[51] * t[19] - lv[54] * t[20]
+        - lv[131] * t[32] - lv[135] * t[33];
+    t[35] = b[perm[k0 + 35]] - lv[-148] * t[-28] - lv[-37] * t[-6] - lv[-31] * t[-5]
+        - lv[-24] * t[-4] - lv[-16] * t[-3] - lv[-8] * t[-2] - lv[-1] * t[-1] - lv[22] * t[10]
+        - lv[66] * t[22] - lv[73] * t[23] - lv[79] * t[24] - lv[86] * t[25] - lv[93] * t[26]
+        - lv[99] * t[27] - lv[105] * t[28] - lv[111] * t[29] - lv[117] * t[30] - lv[123] * t[31]
+        - lv[132] * t[32] - lv[136] * t[33] - lv[141] * t[34];
+    t[36] = b[perm[k0 + 36]] - lv[32] * t[13] - lv[100] * t[27] - lv[106] * t[28]
+        - lv[112] * t[29] - lv[118] * t[30] - lv[124] * t[31] - lv[148] * t[35];
+    t[37] = b[perm[k0 + 37]] - lv[20] * t[9] - lv[55] * t[20] - lv[133] * t[32]
+        - lv[137] * t[33] - lv[142] * t[34] - lv[149] * t[35] - lv[156] * t[36];
 }
 
 
 /* Backward sweep of columns k0+SK_P-1 down to k0 (as backward_cols). */
 static void backward_stage(const pdg_socp_work *w, real *tb, real *x, int k0, int l0)
 {
-    const real *lx = w->lx + l0;
-    const real *dinv = w->dinv + k0;
+    const real *lv = w->l_val + l0;
+    const real *pinv = w->pivot_inv + k0;
     real *t = tb + k0;
-    t[37] = t[37] * dinv[37] - lx[170] * t[73] - lx[169] * t[65] - lx[168] * t[64]
-        - lx[167] * t[63] - lx[166] * t[62] - lx[165] * t[61] - lx[164] * t[60];
+    t[37] = t[37] * pinv[37] - lv[170] * t[73] - lv[169] * t[65] - lv[168] * t[64]
+        - lv[167] * t[63] - lv[166] * t[62] - lv[165] * t[61] - lv[164] * t[60];
     x[perm[k0 + 37]] = t[37];
-    t[36] = t[36] * dinv[36] - lx[163] * t[73] - lx[162] * t[65] - lx[161] * t[64]
-        - lx[160] * t[63] - lx[159] * t[62] - lx[158] * t[61] - lx[157] * t[60]
-        - lx[156] * t[37];
+    t[36] = t[36] * pinv[36] - lv[163] * t[73] - lv[162] * t[65] - lv[161] * t[64]
+        - lv[160] * t[63] - lv[159] * t[62] - lv[158] * t[61] - lv[157] * t[60]
+        - lv[156] * t[37];
     x[perm[k0 + 36]] = t[36];
-    t[35] = t[35] * dinv[35] - lx[155] * t[73] - lx[154] * t[64] - lx[153] * t[63]
-        - lx[152] * t[62] - lx[151] * t[61] - lx[150] * t[60] - lx[149] * t[37]
-        - lx[148] * t[36];
+    t[35] = t[35] * pinv[35] - lv[155] * t[73] - lv[154] * t[64] - lv[153] * t[63]
+        - lv[152] * t[62] - lv[151] * t[61] - lv[150] * t[60] - lv[149] * t[37]
+        - lv[148] * t[36];
     x[perm[k0 + 35]] = t[35];
-    t[34] = t[34] * dinv[34] - lx[147] * t[73] - lx[146] * t[64] - lx[145] * t[63]
-        - lx[144] * t[62] - lx[143] * t[60] - lx[142] * t[37] - lx[141] * t[35];
+    t[34] = t[34] * pinv[34] - lv[147] * t[73] - lv[146] * t[64] - lv[145] * t[63]
+        - lv[144] * t[62] - lv[143] * t[60] - lv[142] * t[37] - lv[141] * t[35];
     x[perm[k0 + 34]] = t[34];
-    t[33] = t[33] * dinv[33] - lx[140] * t[73] - lx[139] * t[63] - lx[138] * t[62]
-        - lx[137] * t[37] - lx[136] * t[35] - lx[135] * t[34];
+    t[33] = t[33] * pinv[33] - lv[140] * t[73] - lv[139] * t[63] - lv[138] * t[62]
+        - lv[137] * t[37] - lv[136] * t[35] - lv[135] * t[34];
     x[perm[k0 + 33]] = t[33];
-    t[32] = t[32] * dinv[32] - lx[134] * t[73] - lx[133] * t[37] - lx[132] * t[35]
-        - lx[131] * t[34] - lx[130] * t[33];
+    t[32] = t[32] * pinv[32] - lv[134] * t[73] - lv[133] * t[37] - lv[132] * t[35]
+        - lv[131] * t[34] - lv[130] * t[33];
     x[perm[k0 + 32]] = t[32];
-    t[31] = t[31] * dinv[31] - lx[129] * t[64] - lx[128] * t[63] - lx[127] * t[62]
-        - lx[126] * t[61] - lx[125] * t[60] - lx[124] * t[36] - lx[123] * t[35];
+    t[31] = t[31] * pinv[31] - lv[129] * t[64] - lv[128] * t[63] - lv[127] * t[62]
+        - lv[126] * t[61] - lv[125] * t[60] - lv[124] * t[36] - lv[123] * t[35];
     x[perm[k0 + 31]] = t[31];
-    t[30] = t[30] * dinv[30] - lx[122] * t[63] - lx[121] * t[62] - lx[120] * t[61]
-        - lx[119] * t[60] - lx[118] * t[36] - lx[117] * t[35] - lx[116] * t[31];
+    t[30] = t[30] * pinv[30] - lv[122] * t[63] - lv[121] * t[62] - lv[120] * t[61]
+        - lv[119] * t[60] - lv[118] * t[36] - lv[117] * t[35] - lv[116] * t[31];
     x[perm[k0 + 30]] = t[30];
-    t[29] = t[29] * dinv[29] - lx[115] * t[62] - lx[114] * t[61] - lx[113] * t[60]
-        - lx[112] * t[36] - lx[111] * t[35] - lx[110] * t[31] - lx[109] * t[30];
+    t[29] = t[29] * pinv[29] - lv[115] * t[62] - lv[114] * t[61] - lv[113] * t[60]
+        - lv[112] * t[36] - lv[111] * t[35] - lv[110] * t[31] - lv[109] * t[30];
     x[perm[k0 + 29]] = t[29];
-    t[28] = t[28] * dinv[28] - lx[108] * t[62] - lx[107] * t[60] - lx[106] * t[36]
-        - lx[105] * t[35] - lx[104] * t[31] - lx[103] * t[30] - lx[102] * t[29];
+    t[28] = t[28] * pinv[28] - lv[108] * t[62] - lv[107] * t[60] - lv[106] * t[36]
+        - lv[105] * t[35] - lv[104] * t[31] - lv[103] * t[30] - lv[102] * t[29];
     x[perm[k0 + 28]] = t[28];
-    t[27] = t[27] * dinv[27] - lx[101] * t[62] - lx[100] * t[36] - lx[99] * t[35]
-        - lx[98] * t[31] - lx[97] * t[30] - lx[96] * t[29] - lx[95] * t[28];
+    t[27] = t[27] * pinv[27] - lv[101] * t[62] - lv[100] * t[36] - lv[99] * t[35]
+        - lv[98] * t[31] - lv[97] * t[30] - lv[96] * t[29] - lv[95] * t[28];
     x[perm[k0 + 27]] = t[27];
-    t[26] = t[26] * dinv[26] - lx[94] * t[62] - lx[93] * t[35] - lx[92] * t[31] - lx[91] * t[30]
-        - lx[90] * t[29] - lx[89] * t[28] - lx[88] * t[27];
+    t[26] = t[26] * pinv[26] - lv[94] * t[62] - lv[93] * t[35] - lv[92] * t[31] - lv[91] * t[30]
+        - lv[90] * t[29] - lv[89] * t[28] - lv[88] * t[27];
     x[perm[k0 + 26]] = t[26];
-    t[25] = t[25] * dinv[25] - lx[87] * t[62] - lx[86] * t[35] - lx[85] * t[30] - lx[84] * t[29]
-        - lx[83] * t[28] - lx[82] * t[27] - lx[81] * t[26];
+    t[25] = t[25] * pinv[25] - lv[87] * t[62] - lv[86] * t[35] - lv[85] * t[30] - lv[84] * t[29]
+        - lv[83] * t[28] - lv[82] * t[27] - lv[81] * t[26];
     x[perm[k0 + 25]] = t[25];
-    t[24] = t[24] * dinv[24] - lx[80] * t[62] - lx[79] * t[35] - lx[78] * t[29] - lx[77] * t[28]
-        - lx[76] * t[27] - lx[75] * t[26] - lx[74] * t[25];
+    t[24] = t[24] * pinv[24] - lv[80] * t[62] - lv[79] * t[35] - lv[78] * t[29] - lv[77] * t[28]
+        - lv[76] * t[27] - lv[75] * t[26] - lv[74] * t[25];
     x[perm[k0 + 24]] = t[24];
-    t[23] = t[23] * dinv[23] - lx[73] * t[35] - lx[72] * t[29] - lx[71] * t[28] - lx[70] * t[27]
-        - lx[69] * t[26] - lx[68] * t[25] - lx[67] * t[24];
+    t[23] = t[23] * pinv[23] - lv[73] * t[35] - lv[72] * t[29] - lv[71] * t[28] - lv[70] * t[27]
+        - lv[69] * t[26] - lv[68] * t[25] - lv[67] * t[24];
     x[perm[k0 + 23]] = t[23];
-    t[22] = t[22] * dinv[22] - lx[66] * t[35] - lx[65] * t[28] - lx[64] * t[27] - lx[63] * t[26]
-        - lx[62] * t[25] - lx[61] * t[24] - lx[60] * t[23];
+    t[22] = t[22] * pinv[22] - lv[66] * t[35] - lv[65] * t[28] - lv[64] * t[27] - lv[63] * t[26]
+        - lv[62] * t[25] - lv[61] * t[24] - lv[60] * t[23];
     x[perm[k0 + 22]] = t[22];
-    t[21] = t[21] * dinv[21] - lx[59] * t[62] - lx[58] * t[29] - lx[57] * t[28] - lx[56] * t[24];
+    t[21] = t[21] * pinv[21] - lv[59] * t[62] - lv[58] * t[29] - lv[57] * t[28] - lv[56] * t[24];
     x[perm[k0 + 21]] = t[21];
-    t[20] = t[20] * dinv[20] - lx[55] * t[37] - lx[54] * t[34] - lx[53] * t[33] - lx[52] * t[32];
+    t[20] = t[20] * pinv[20] - lv[55] * t[37] - lv[54] * t[34] - lv[53] * t[33] - lv[52] * t[32];
     x[perm[k0 + 20]] = t[20];
-    t[19] = t[19] * dinv[19] - lx[51] * t[34] - lx[50] * t[33] - lx[49] * t[32] - lx[48] * t[20];
+    t[19] = t[19] * pinv[19] - lv[51] * t[34] - lv[50] * t[33] - lv[49] * t[32] - lv[48] * t[20];
     x[perm[k0 + 19]] = t[19];
-    t[18] = t[18] * dinv[18] - lx[47] * t[64] - lx[46] * t[60] - lx[45] * t[34];
+    t[18] = t[18] * pinv[18] - lv[47] * t[64] - lv[46] * t[60] - lv[45] * t[34];
     x[perm[k0 + 18]] = t[18];
-    t[17] = t[17] * dinv[17] - lx[44] * t[63] - lx[43] * t[62] - lx[42] * t[33];
+    t[17] = t[17] * pinv[17] - lv[44] * t[63] - lv[43] * t[62] - lv[42] * t[33];
     x[perm[k0 + 17]] = t[17];
-    t[16] = t[16] * dinv[16] - lx[41] * t[29] - lx[40] * t[28] - lx[39] * t[21];
+    t[16] = t[16] * pinv[16] - lv[41] * t[29] - lv[40] * t[28] - lv[39] * t[21];
     x[perm[k0 + 16]] = t[16];
-    t[15] = t[15] * dinv[15] - lx[38] * t[29] - lx[37] * t[21] - lx[36] * t[16];
+    t[15] = t[15] * pinv[15] - lv[38] * t[29] - lv[37] * t[21] - lv[36] * t[16];
     x[perm[k0 + 15]] = t[15];
-    t[14] = t[14] * dinv[14] - lx[35] * t[29] - lx[34] * t[16] - lx[33] * t[15];
+    t[14] = t[14] * pinv[14] - lv[35] * t[29] - lv[34] * t[16] - lv[33] * t[15];
     x[perm[k0 + 14]] = t[14];
-    t[13] = t[13] * dinv[13] - lx[32] * t[36] - lx[31] * t[31] - lx[30] * t[30];
+    t[13] = t[13] * pinv[13] - lv[32] * t[36] - lv[31] * t[31] - lv[30] * t[30];
     x[perm[k0 + 13]] = t[13];
-    t[12] = t[12] * dinv[12] - lx[29] * t[31] - lx[28] * t[30] - lx[27] * t[13];
+    t[12] = t[12] * pinv[12] - lv[29] * t[31] - lv[28] * t[30] - lv[27] * t[13];
     x[perm[k0 + 12]] = t[12];
-    t[11] = t[11] * dinv[11] - lx[26] * t[30] - lx[25] * t[13] - lx[24] * t[12];
+    t[11] = t[11] * pinv[11] - lv[26] * t[30] - lv[25] * t[13] - lv[24] * t[12];
     x[perm[k0 + 11]] = t[11];
-    t[10] = t[10] * dinv[10] - lx[23] * t[73] - lx[22] * t[35] - lx[21] * t[32];
+    t[10] = t[10] * pinv[10] - lv[23] * t[73] - lv[22] * t[35] - lv[21] * t[32];
     x[perm[k0 + 10]] = t[10];
-    t[9] = t[9] * dinv[9] - lx[20] * t[37] - lx[19] * t[32];
+    t[9] = t[9] * pinv[9] - lv[20] * t[37] - lv[19] * t[32];
     x[perm[k0 + 9]] = t[9];
-    t[8] = t[8] * dinv[8] - lx[18] * t[32] - lx[17] * t[10];
+    t[8] = t[8] * pinv[8] - lv[18] * t[32] - lv[17] * t[10];
     x[perm[k0 + 8]] = t[8];
-    t[7] = t[7] * dinv[7] - lx[16] * t[32] - lx[15] * t[10] - lx[14] * t[8];
+    t[7] = t[7] * pinv[7] - lv[16] * t[32] - lv[15] * t[10] - lv[14] * t[8];
     x[perm[k0 + 7]] = t[7];
-    t[6] = t[6] * dinv[6] - lx[13] * t[32] - lx[12] * t[10];
+    t[6] = t[6] * pinv[6] - lv[13] * t[32] - lv[12] * t[10];
     x[perm[k0 + 6]] = t[6];
-    t[5] = t[5] * dinv[5] - lx[11] * t[32] - lx[10] * t[19];
+    t[5] = t[5] * pinv[5] - lv[11] * t[32] - lv[10] * t[19];
     x[perm[k0 + 5]] = t[5];
-    t[4] = t[4] * dinv[4] - lx[9] * t[19] - lx[8] * t[5];
+    t[4] = t[4] * pinv[4] - lv[9] * t[19] - lv[8] * t[5];
     x[perm[k0 + 4]] = t[4];
-    t[3] = t[3] * dinv[3] - lx[7] * t[13] - lx[6] * t[12] - lx[5] * t[11];
+    t[3] = t[3] * pinv[3] - lv[7] * t[13] - lv[6] * t[12] - lv[5] * t[11];
     x[perm[k0 + 3]] = t[3];
-    t[2] = t[2] * dinv[2] - lx[4] * t[10] - lx[3] * t[8] - lx[2] * t[7];
+    t[2] = t[2] * pinv[2] - lv[4] * t[10] - lv[3] * t[8] - lv[2] * t[7];
     x[perm[k0 + 2]] = t[2];
-    t[1] = t[1] * dinv[1] - lx[1] * t[10];
+    t[1] = t[1] * pinv[1] - lv[1] * t[10];
     x[perm[k0 + 1]] = t[1];
-    t[0] = t[0] * dinv[0] - lx[0] * t[10];
+    t[0] = t[0] * pinv[0] - lv[0] * t[10];
     x[perm[k0 + 0]] = t[0];
 }
 
@@ -3844,162 +3844,162 @@ static void backward_stage(const pdg_socp_work *w, real *tb, real *x, int k0, in
 static void backward_stage2(const pdg_socp_work *w, real *tb, real *tb2, real *x1,
                             real *x2, int k0, int l0)
 {
-    const real *lx = w->lx + l0;
-    const real *dinv = w->dinv + k0;
+    const real *lv = w->l_val + l0;
+    const real *pinv = w->pivot_inv + k0;
     real *t = tb + k0;
     real *t2 = tb2 + k0;
-    t[37] = t[37] * dinv[37] - lx[170] * t[73] - lx[169] * t[65] - lx[168] * t[64]
-        - lx[167] * t[63] - lx[166] * t[62] - lx[165] * t[61] - lx[164] * t[60];
-    t2[37] = t2[37] * dinv[37] - lx[170] * t2[73] - lx[169] * t2[65] - lx[168] * t2[64]
-        - lx[167] * t2[63] - lx[166] * t2[62] - lx[165] * t2[61] - lx[164] * t2[60];
+    t[37] = t[37] * pinv[37] - lv[170] * t[73] - lv[169] * t[65] - lv[168] * t[64]
+        - lv[167] * t[63] - lv[166] * t[62] - lv[165] * t[61] - lv[164] * t[60];
+    t2[37] = t2[37] * pinv[37] - lv[170] * t2[73] - lv[169] * t2[65] - lv[168] * t2[64]
+        - lv[167] * t2[63] - lv[166] * t2[62] - lv[165] * t2[61] - lv[164] * t2[60];
     x1[perm[k0 + 37]] = t[37]; x2[perm[k0 + 37]] = t2[37];
-    t[36] = t[36] * dinv[36] - lx[163] * t[73] - lx[162] * t[65] - lx[161] * t[64]
-        - lx[160] * t[63] - lx[159] * t[62] - lx[158] * t[61] - lx[157] * t[60]
-        - lx[156] * t[37];
-    t2[36] = t2[36] * dinv[36] - lx[163] * t2[73] - lx[162] * t2[65] - lx[161] * t2[64]
-        - lx[160] * t2[63] - lx[159] * t2[62] - lx[158] * t2[61] - lx[157] * t2[60]
-        - lx[156] * t2[37];
+    t[36] = t[36] * pinv[36] - lv[163] * t[73] - lv[162] * t[65] - lv[161] * t[64]
+        - lv[160] * t[63] - lv[159] * t[62] - lv[158] * t[61] - lv[157] * t[60]
+        - lv[156] * t[37];
+    t2[36] = t2[36] * pinv[36] - lv[163] * t2[73] - lv[162] * t2[65] - lv[161] * t2[64]
+        - lv[160] * t2[63] - lv[159] * t2[62] - lv[158] * t2[61] - lv[157] * t2[60]
+        - lv[156] * t2[37];
     x1[perm[k0 + 36]] = t[36]; x2[perm[k0 + 36]] = t2[36];
-    t[35] = t[35] * dinv[35] - lx[155] * t[73] - lx[154] * t[64] - lx[153] * t[63]
-        - lx[152] * t[62] - lx[151] * t[61] - lx[150] * t[60] - lx[149] * t[37]
-        - lx[148] * t[36];
-    t2[35] = t2[35] * dinv[35] - lx[155] * t2[73] - lx[154] * t2[64] - lx[153] * t2[63]
-        - lx[152] * t2[62] - lx[151] * t2[61] - lx[150] * t2[60] - lx[149] * t2[37]
-        - lx[148] * t2[36];
+    t[35] = t[35] * pinv[35] - lv[155] * t[73] - lv[154] * t[64] - lv[153] * t[63]
+        - lv[152] * t[62] - lv[151] * t[61] - lv[150] * t[60] - lv[149] * t[37]
+        - lv[148] * t[36];
+    t2[35] = t2[35] * pinv[35] - lv[155] * t2[73] - lv[154] * t2[64] - lv[153] * t2[63]
+        - lv[152] * t2[62] - lv[151] * t2[61] - lv[150] * t2[60] - lv[149] * t2[37]
+        - lv[148] * t2[36];
     x1[perm[k0 + 35]] = t[35]; x2[perm[k0 + 35]] = t2[35];
-    t[34] = t[34] * dinv[34] - lx[147] * t[73] - lx[146] * t[64] - lx[145] * t[63]
-        - lx[144] * t[62] - lx[143] * t[60] - lx[142] * t[37] - lx[141] * t[35];
-    t2[34] = t2[34] * dinv[34] - lx[147] * t2[73] - lx[146] * t2[64] - lx[145] * t2[63]
-        - lx[144] * t2[62] - lx[143] * t2[60] - lx[142] * t2[37] - lx[141] * t2[35];
+    t[34] = t[34] * pinv[34] - lv[147] * t[73] - lv[146] * t[64] - lv[145] * t[63]
+        - lv[144] * t[62] - lv[143] * t[60] - lv[142] * t[37] - lv[141] * t[35];
+    t2[34] = t2[34] * pinv[34] - lv[147] * t2[73] - lv[146] * t2[64] - lv[145] * t2[63]
+        - lv[144] * t2[62] - lv[143] * t2[60] - lv[142] * t2[37] - lv[141] * t2[35];
     x1[perm[k0 + 34]] = t[34]; x2[perm[k0 + 34]] = t2[34];
-    t[33] = t[33] * dinv[33] - lx[140] * t[73] - lx[139] * t[63] - lx[138] * t[62]
-        - lx[137] * t[37] - lx[136] * t[35] - lx[135] * t[34];
-    t2[33] = t2[33] * dinv[33] - lx[140] * t2[73] - lx[139] * t2[63] - lx[138] * t2[62]
-        - lx[137] * t2[37] - lx[136] * t2[35] - lx[135] * t2[34];
+    t[33] = t[33] * pinv[33] - lv[140] * t[73] - lv[139] * t[63] - lv[138] * t[62]
+        - lv[137] * t[37] - lv[136] * t[35] - lv[135] * t[34];
+    t2[33] = t2[33] * pinv[33] - lv[140] * t2[73] - lv[139] * t2[63] - lv[138] * t2[62]
+        - lv[137] * t2[37] - lv[136] * t2[35] - lv[135] * t2[34];
     x1[perm[k0 + 33]] = t[33]; x2[perm[k0 + 33]] = t2[33];
-    t[32] = t[32] * dinv[32] - lx[134] * t[73] - lx[133] * t[37] - lx[132] * t[35]
-        - lx[131] * t[34] - lx[130] * t[33];
-    t2[32] = t2[32] * dinv[32] - lx[134] * t2[73] - lx[133] * t2[37] - lx[132] * t2[35]
-        - lx[131] * t2[34] - lx[130] * t2[33];
+    t[32] = t[32] * pinv[32] - lv[134] * t[73] - lv[133] * t[37] - lv[132] * t[35]
+        - lv[131] * t[34] - lv[130] * t[33];
+    t2[32] = t2[32] * pinv[32] - lv[134] * t2[73] - lv[133] * t2[37] - lv[132] * t2[35]
+        - lv[131] * t2[34] - lv[130] * t2[33];
     x1[perm[k0 + 32]] = t[32]; x2[perm[k0 + 32]] = t2[32];
-    t[31] = t[31] * dinv[31] - lx[129] * t[64] - lx[128] * t[63] - lx[127] * t[62]
-        - lx[126] * t[61] - lx[125] * t[60] - lx[124] * t[36] - lx[123] * t[35];
-    t2[31] = t2[31] * dinv[31] - lx[129] * t2[64] - lx[128] * t2[63] - lx[127] * t2[62]
-        - lx[126] * t2[61] - lx[125] * t2[60] - lx[124] * t2[36] - lx[123] * t2[35];
+    t[31] = t[31] * pinv[31] - lv[129] * t[64] - lv[128] * t[63] - lv[127] * t[62]
+        - lv[126] * t[61] - lv[125] * t[60] - lv[124] * t[36] - lv[123] * t[35];
+    t2[31] = t2[31] * pinv[31] - lv[129] * t2[64] - lv[128] * t2[63] - lv[127] * t2[62]
+        - lv[126] * t2[61] - lv[125] * t2[60] - lv[124] * t2[36] - lv[123] * t2[35];
     x1[perm[k0 + 31]] = t[31]; x2[perm[k0 + 31]] = t2[31];
-    t[30] = t[30] * dinv[30] - lx[122] * t[63] - lx[121] * t[62] - lx[120] * t[61]
-        - lx[119] * t[60] - lx[118] * t[36] - lx[117] * t[35] - lx[116] * t[31];
-    t2[30] = t2[30] * dinv[30] - lx[122] * t2[63] - lx[121] * t2[62] - lx[120] * t2[61]
-        - lx[119] * t2[60] - lx[118] * t2[36] - lx[117] * t2[35] - lx[116] * t2[31];
+    t[30] = t[30] * pinv[30] - lv[122] * t[63] - lv[121] * t[62] - lv[120] * t[61]
+        - lv[119] * t[60] - lv[118] * t[36] - lv[117] * t[35] - lv[116] * t[31];
+    t2[30] = t2[30] * pinv[30] - lv[122] * t2[63] - lv[121] * t2[62] - lv[120] * t2[61]
+        - lv[119] * t2[60] - lv[118] * t2[36] - lv[117] * t2[35] - lv[116] * t2[31];
     x1[perm[k0 + 30]] = t[30]; x2[perm[k0 + 30]] = t2[30];
-    t[29] = t[29] * dinv[29] - lx[115] * t[62] - lx[114] * t[61] - lx[113] * t[60]
-        - lx[112] * t[36] - lx[111] * t[35] - lx[110] * t[31] - lx[109] * t[30];
-    t2[29] = t2[29] * dinv[29] - lx[115] * t2[62] - lx[114] * t2[61] - lx[113] * t2[60]
-        - lx[112] * t2[36] - lx[111] * t2[35] - lx[110] * t2[31] - lx[109] * t2[30];
+    t[29] = t[29] * pinv[29] - lv[115] * t[62] - lv[114] * t[61] - lv[113] * t[60]
+        - lv[112] * t[36] - lv[111] * t[35] - lv[110] * t[31] - lv[109] * t[30];
+    t2[29] = t2[29] * pinv[29] - lv[115] * t2[62] - lv[114] * t2[61] - lv[113] * t2[60]
+        - lv[112] * t2[36] - lv[111] * t2[35] - lv[110] * t2[31] - lv[109] * t2[30];
     x1[perm[k0 + 29]] = t[29]; x2[perm[k0 + 29]] = t2[29];
-    t[28] = t[28] * dinv[28] - lx[108] * t[62] - lx[107] * t[60] - lx[106] * t[36]
-        - lx[105] * t[35] - lx[104] * t[31] - lx[103] * t[30] - lx[102] * t[29];
-    t2[28] = t2[28] * dinv[28] - lx[108] * t2[62] - lx[107] * t2[60] - lx[106] * t2[36]
-        - lx[105] * t2[35] - lx[104] * t2[31] - lx[103] * t2[30] - lx[102] * t2[29];
+    t[28] = t[28] * pinv[28] - lv[108] * t[62] - lv[107] * t[60] - lv[106] * t[36]
+        - lv[105] * t[35] - lv[104] * t[31] - lv[103] * t[30] - lv[102] * t[29];
+    t2[28] = t2[28] * pinv[28] - lv[108] * t2[62] - lv[107] * t2[60] - lv[106] * t2[36]
+        - lv[105] * t2[35] - lv[104] * t2[31] - lv[103] * t2[30] - lv[102] * t2[29];
     x1[perm[k0 + 28]] = t[28]; x2[perm[k0 + 28]] = t2[28];
-    t[27] = t[27] * dinv[27] - lx[101] * t[62] - lx[100] * t[36] - lx[99] * t[35]
-        - lx[98] * t[31] - lx[97] * t[30] - lx[96] * t[29] - lx[95] * t[28];
-    t2[27] = t2[27] * dinv[27] - lx[101] * t2[62] - lx[100] * t2[36] - lx[99] * t2[35]
-        - lx[98] * t2[31] - lx[97] * t2[30] - lx[96] * t2[29] - lx[95] * t2[28];
+    t[27] = t[27] * pinv[27] - lv[101] * t[62] - lv[100] * t[36] - lv[99] * t[35]
+        - lv[98] * t[31] - lv[97] * t[30] - lv[96] * t[29] - lv[95] * t[28];
+    t2[27] = t2[27] * pinv[27] - lv[101] * t2[62] - lv[100] * t2[36] - lv[99] * t2[35]
+        - lv[98] * t2[31] - lv[97] * t2[30] - lv[96] * t2[29] - lv[95] * t2[28];
     x1[perm[k0 + 27]] = t[27]; x2[perm[k0 + 27]] = t2[27];
-    t[26] = t[26] * dinv[26] - lx[94] * t[62] - lx[93] * t[35] - lx[92] * t[31] - lx[91] * t[30]
-        - lx[90] * t[29] - lx[89] * t[28] - lx[88] * t[27];
-    t2[26] = t2[26] * dinv[26] - lx[94] * t2[62] - lx[93] * t2[35] - lx[92] * t2[31]
-        - lx[91] * t2[30] - lx[90] * t2[29] - lx[89] * t2[28] - lx[88] * t2[27];
+    t[26] = t[26] * pinv[26] - lv[94] * t[62] - lv[93] * t[35] - lv[92] * t[31] - lv[91] * t[30]
+        - lv[90] * t[29] - lv[89] * t[28] - lv[88] * t[27];
+    t2[26] = t2[26] * pinv[26] - lv[94] * t2[62] - lv[93] * t2[35] - lv[92] * t2[31]
+        - lv[91] * t2[30] - lv[90] * t2[29] - lv[89] * t2[28] - lv[88] * t2[27];
     x1[perm[k0 + 26]] = t[26]; x2[perm[k0 + 26]] = t2[26];
-    t[25] = t[25] * dinv[25] - lx[87] * t[62] - lx[86] * t[35] - lx[85] * t[30] - lx[84] * t[29]
-        - lx[83] * t[28] - lx[82] * t[27] - lx[81] * t[26];
-    t2[25] = t2[25] * dinv[25] - lx[87] * t2[62] - lx[86] * t2[35] - lx[85] * t2[30]
-        - lx[84] * t2[29] - lx[83] * t2[28] - lx[82] * t2[27] - lx[81] * t2[26];
+    t[25] = t[25] * pinv[25] - lv[87] * t[62] - lv[86] * t[35] - lv[85] * t[30] - lv[84] * t[29]
+        - lv[83] * t[28] - lv[82] * t[27] - lv[81] * t[26];
+    t2[25] = t2[25] * pinv[25] - lv[87] * t2[62] - lv[86] * t2[35] - lv[85] * t2[30]
+        - lv[84] * t2[29] - lv[83] * t2[28] - lv[82] * t2[27] - lv[81] * t2[26];
     x1[perm[k0 + 25]] = t[25]; x2[perm[k0 + 25]] = t2[25];
-    t[24] = t[24] * dinv[24] - lx[80] * t[62] - lx[79] * t[35] - lx[78] * t[29] - lx[77] * t[28]
-        - lx[76] * t[27] - lx[75] * t[26] - lx[74] * t[25];
-    t2[24] = t2[24] * dinv[24] - lx[80] * t2[62] - lx[79] * t2[35] - lx[78] * t2[29]
-        - lx[77] * t2[28] - lx[76] * t2[27] - lx[75] * t2[26] - lx[74] * t2[25];
+    t[24] = t[24] * pinv[24] - lv[80] * t[62] - lv[79] * t[35] - lv[78] * t[29] - lv[77] * t[28]
+        - lv[76] * t[27] - lv[75] * t[26] - lv[74] * t[25];
+    t2[24] = t2[24] * pinv[24] - lv[80] * t2[62] - lv[79] * t2[35] - lv[78] * t2[29]
+        - lv[77] * t2[28] - lv[76] * t2[27] - lv[75] * t2[26] - lv[74] * t2[25];
     x1[perm[k0 + 24]] = t[24]; x2[perm[k0 + 24]] = t2[24];
-    t[23] = t[23] * dinv[23] - lx[73] * t[35] - lx[72] * t[29] - lx[71] * t[28] - lx[70] * t[27]
-        - lx[69] * t[26] - lx[68] * t[25] - lx[67] * t[24];
-    t2[23] = t2[23] * dinv[23] - lx[73] * t2[35] - lx[72] * t2[29] - lx[71] * t2[28]
-        - lx[70] * t2[27] - lx[69] * t2[26] - lx[68] * t2[25] - lx[67] * t2[24];
+    t[23] = t[23] * pinv[23] - lv[73] * t[35] - lv[72] * t[29] - lv[71] * t[28] - lv[70] * t[27]
+        - lv[69] * t[26] - lv[68] * t[25] - lv[67] * t[24];
+    t2[23] = t2[23] * pinv[23] - lv[73] * t2[35] - lv[72] * t2[29] - lv[71] * t2[28]
+        - lv[70] * t2[27] - lv[69] * t2[26] - lv[68] * t2[25] - lv[67] * t2[24];
     x1[perm[k0 + 23]] = t[23]; x2[perm[k0 + 23]] = t2[23];
-    t[22] = t[22] * dinv[22] - lx[66] * t[35] - lx[65] * t[28] - lx[64] * t[27] - lx[63] * t[26]
-        - lx[62] * t[25] - lx[61] * t[24] - lx[60] * t[23];
-    t2[22] = t2[22] * dinv[22] - lx[66] * t2[35] - lx[65] * t2[28] - lx[64] * t2[27]
-        - lx[63] * t2[26] - lx[62] * t2[25] - lx[61] * t2[24] - lx[60] * t2[23];
+    t[22] = t[22] * pinv[22] - lv[66] * t[35] - lv[65] * t[28] - lv[64] * t[27] - lv[63] * t[26]
+        - lv[62] * t[25] - lv[61] * t[24] - lv[60] * t[23];
+    t2[22] = t2[22] * pinv[22] - lv[66] * t2[35] - lv[65] * t2[28] - lv[64] * t2[27]
+        - lv[63] * t2[26] - lv[62] * t2[25] - lv[61] * t2[24] - lv[60] * t2[23];
     x1[perm[k0 + 22]] = t[22]; x2[perm[k0 + 22]] = t2[22];
-    t[21] = t[21] * dinv[21] - lx[59] * t[62] - lx[58] * t[29] - lx[57] * t[28] - lx[56] * t[24];
-    t2[21] = t2[21] * dinv[21] - lx[59] * t2[62] - lx[58] * t2[29] - lx[57] * t2[28]
-        - lx[56] * t2[24];
+    t[21] = t[21] * pinv[21] - lv[59] * t[62] - lv[58] * t[29] - lv[57] * t[28] - lv[56] * t[24];
+    t2[21] = t2[21] * pinv[21] - lv[59] * t2[62] - lv[58] * t2[29] - lv[57] * t2[28]
+        - lv[56] * t2[24];
     x1[perm[k0 + 21]] = t[21]; x2[perm[k0 + 21]] = t2[21];
-    t[20] = t[20] * dinv[20] - lx[55] * t[37] - lx[54] * t[34] - lx[53] * t[33] - lx[52] * t[32];
-    t2[20] = t2[20] * dinv[20] - lx[55] * t2[37] - lx[54] * t2[34] - lx[53] * t2[33]
-        - lx[52] * t2[32];
+    t[20] = t[20] * pinv[20] - lv[55] * t[37] - lv[54] * t[34] - lv[53] * t[33] - lv[52] * t[32];
+    t2[20] = t2[20] * pinv[20] - lv[55] * t2[37] - lv[54] * t2[34] - lv[53] * t2[33]
+        - lv[52] * t2[32];
     x1[perm[k0 + 20]] = t[20]; x2[perm[k0 + 20]] = t2[20];
-    t[19] = t[19] * dinv[19] - lx[51] * t[34] - lx[50] * t[33] - lx[49] * t[32] - lx[48] * t[20];
-    t2[19] = t2[19] * dinv[19] - lx[51] * t2[34] - lx[50] * t2[33] - lx[49] * t2[32]
-        - lx[48] * t2[20];
+    t[19] = t[19] * pinv[19] - lv[51] * t[34] - lv[50] * t[33] - lv[49] * t[32] - lv[48] * t[20];
+    t2[19] = t2[19] * pinv[19] - lv[51] * t2[34] - lv[50] * t2[33] - lv[49] * t2[32]
+        - lv[48] * t2[20];
     x1[perm[k0 + 19]] = t[19]; x2[perm[k0 + 19]] = t2[19];
-    t[18] = t[18] * dinv[18] - lx[47] * t[64] - lx[46] * t[60] - lx[45] * t[34];
-    t2[18] = t2[18] * dinv[18] - lx[47] * t2[64] - lx[46] * t2[60] - lx[45] * t2[34];
+    t[18] = t[18] * pinv[18] - lv[47] * t[64] - lv[46] * t[60] - lv[45] * t[34];
+    t2[18] = t2[18] * pinv[18] - lv[47] * t2[64] - lv[46] * t2[60] - lv[45] * t2[34];
     x1[perm[k0 + 18]] = t[18]; x2[perm[k0 + 18]] = t2[18];
-    t[17] = t[17] * dinv[17] - lx[44] * t[63] - lx[43] * t[62] - lx[42] * t[33];
-    t2[17] = t2[17] * dinv[17] - lx[44] * t2[63] - lx[43] * t2[62] - lx[42] * t2[33];
+    t[17] = t[17] * pinv[17] - lv[44] * t[63] - lv[43] * t[62] - lv[42] * t[33];
+    t2[17] = t2[17] * pinv[17] - lv[44] * t2[63] - lv[43] * t2[62] - lv[42] * t2[33];
     x1[perm[k0 + 17]] = t[17]; x2[perm[k0 + 17]] = t2[17];
-    t[16] = t[16] * dinv[16] - lx[41] * t[29] - lx[40] * t[28] - lx[39] * t[21];
-    t2[16] = t2[16] * dinv[16] - lx[41] * t2[29] - lx[40] * t2[28] - lx[39] * t2[21];
+    t[16] = t[16] * pinv[16] - lv[41] * t[29] - lv[40] * t[28] - lv[39] * t[21];
+    t2[16] = t2[16] * pinv[16] - lv[41] * t2[29] - lv[40] * t2[28] - lv[39] * t2[21];
     x1[perm[k0 + 16]] = t[16]; x2[perm[k0 + 16]] = t2[16];
-    t[15] = t[15] * dinv[15] - lx[38] * t[29] - lx[37] * t[21] - lx[36] * t[16];
-    t2[15] = t2[15] * dinv[15] - lx[38] * t2[29] - lx[37] * t2[21] - lx[36] * t2[16];
+    t[15] = t[15] * pinv[15] - lv[38] * t[29] - lv[37] * t[21] - lv[36] * t[16];
+    t2[15] = t2[15] * pinv[15] - lv[38] * t2[29] - lv[37] * t2[21] - lv[36] * t2[16];
     x1[perm[k0 + 15]] = t[15]; x2[perm[k0 + 15]] = t2[15];
-    t[14] = t[14] * dinv[14] - lx[35] * t[29] - lx[34] * t[16] - lx[33] * t[15];
-    t2[14] = t2[14] * dinv[14] - lx[35] * t2[29] - lx[34] * t2[16] - lx[33] * t2[15];
+    t[14] = t[14] * pinv[14] - lv[35] * t[29] - lv[34] * t[16] - lv[33] * t[15];
+    t2[14] = t2[14] * pinv[14] - lv[35] * t2[29] - lv[34] * t2[16] - lv[33] * t2[15];
     x1[perm[k0 + 14]] = t[14]; x2[perm[k0 + 14]] = t2[14];
-    t[13] = t[13] * dinv[13] - lx[32] * t[36] - lx[31] * t[31] - lx[30] * t[30];
-    t2[13] = t2[13] * dinv[13] - lx[32] * t2[36] - lx[31] * t2[31] - lx[30] * t2[30];
+    t[13] = t[13] * pinv[13] - lv[32] * t[36] - lv[31] * t[31] - lv[30] * t[30];
+    t2[13] = t2[13] * pinv[13] - lv[32] * t2[36] - lv[31] * t2[31] - lv[30] * t2[30];
     x1[perm[k0 + 13]] = t[13]; x2[perm[k0 + 13]] = t2[13];
-    t[12] = t[12] * dinv[12] - lx[29] * t[31] - lx[28] * t[30] - lx[27] * t[13];
-    t2[12] = t2[12] * dinv[12] - lx[29] * t2[31] - lx[28] * t2[30] - lx[27] * t2[13];
+    t[12] = t[12] * pinv[12] - lv[29] * t[31] - lv[28] * t[30] - lv[27] * t[13];
+    t2[12] = t2[12] * pinv[12] - lv[29] * t2[31] - lv[28] * t2[30] - lv[27] * t2[13];
     x1[perm[k0 + 12]] = t[12]; x2[perm[k0 + 12]] = t2[12];
-    t[11] = t[11] * dinv[11] - lx[26] * t[30] - lx[25] * t[13] - lx[24] * t[12];
-    t2[11] = t2[11] * dinv[11] - lx[26] * t2[30] - lx[25] * t2[13] - lx[24] * t2[12];
+    t[11] = t[11] * pinv[11] - lv[26] * t[30] - lv[25] * t[13] - lv[24] * t[12];
+    t2[11] = t2[11] * pinv[11] - lv[26] * t2[30] - lv[25] * t2[13] - lv[24] * t2[12];
     x1[perm[k0 + 11]] = t[11]; x2[perm[k0 + 11]] = t2[11];
-    t[10] = t[10] * dinv[10] - lx[23] * t[73] - lx[22] * t[35] - lx[21] * t[32];
-    t2[10] = t2[10] * dinv[10] - lx[23] * t2[73] - lx[22] * t2[35] - lx[21] * t2[32];
+    t[10] = t[10] * pinv[10] - lv[23] * t[73] - lv[22] * t[35] - lv[21] * t[32];
+    t2[10] = t2[10] * pinv[10] - lv[23] * t2[73] - lv[22] * t2[35] - lv[21] * t2[32];
     x1[perm[k0 + 10]] = t[10]; x2[perm[k0 + 10]] = t2[10];
-    t[9] = t[9] * dinv[9] - lx[20] * t[37] - lx[19] * t[32];
-    t2[9] = t2[9] * dinv[9] - lx[20] * t2[37] - lx[19] * t2[32];
+    t[9] = t[9] * pinv[9] - lv[20] * t[37] - lv[19] * t[32];
+    t2[9] = t2[9] * pinv[9] - lv[20] * t2[37] - lv[19] * t2[32];
     x1[perm[k0 + 9]] = t[9]; x2[perm[k0 + 9]] = t2[9];
-    t[8] = t[8] * dinv[8] - lx[18] * t[32] - lx[17] * t[10];
-    t2[8] = t2[8] * dinv[8] - lx[18] * t2[32] - lx[17] * t2[10];
+    t[8] = t[8] * pinv[8] - lv[18] * t[32] - lv[17] * t[10];
+    t2[8] = t2[8] * pinv[8] - lv[18] * t2[32] - lv[17] * t2[10];
     x1[perm[k0 + 8]] = t[8]; x2[perm[k0 + 8]] = t2[8];
-    t[7] = t[7] * dinv[7] - lx[16] * t[32] - lx[15] * t[10] - lx[14] * t[8];
-    t2[7] = t2[7] * dinv[7] - lx[16] * t2[32] - lx[15] * t2[10] - lx[14] * t2[8];
+    t[7] = t[7] * pinv[7] - lv[16] * t[32] - lv[15] * t[10] - lv[14] * t[8];
+    t2[7] = t2[7] * pinv[7] - lv[16] * t2[32] - lv[15] * t2[10] - lv[14] * t2[8];
     x1[perm[k0 + 7]] = t[7]; x2[perm[k0 + 7]] = t2[7];
-    t[6] = t[6] * dinv[6] - lx[13] * t[32] - lx[12] * t[10];
-    t2[6] = t2[6] * dinv[6] - lx[13] * t2[32] - lx[12] * t2[10];
+    t[6] = t[6] * pinv[6] - lv[13] * t[32] - lv[12] * t[10];
+    t2[6] = t2[6] * pinv[6] - lv[13] * t2[32] - lv[12] * t2[10];
     x1[perm[k0 + 6]] = t[6]; x2[perm[k0 + 6]] = t2[6];
-    t[5] = t[5] * dinv[5] - lx[11] * t[32] - lx[10] * t[19];
-    t2[5] = t2[5] * dinv[5] - lx[11] * t2[32] - lx[10] * t2[19];
+    t[5] = t[5] * pinv[5] - lv[11] * t[32] - lv[10] * t[19];
+    t2[5] = t2[5] * pinv[5] - lv[11] * t2[32] - lv[10] * t2[19];
     x1[perm[k0 + 5]] = t[5]; x2[perm[k0 + 5]] = t2[5];
-    t[4] = t[4] * dinv[4] - lx[9] * t[19] - lx[8] * t[5];
-    t2[4] = t2[4] * dinv[4] - lx[9] * t2[19] - lx[8] * t2[5];
+    t[4] = t[4] * pinv[4] - lv[9] * t[19] - lv[8] * t[5];
+    t2[4] = t2[4] * pinv[4] - lv[9] * t2[19] - lv[8] * t2[5];
     x1[perm[k0 + 4]] = t[4]; x2[perm[k0 + 4]] = t2[4];
-    t[3] = t[3] * dinv[3] - lx[7] * t[13] - lx[6] * t[12] - lx[5] * t[11];
-    t2[3] = t2[3] * dinv[3] - lx[7] * t2[13] - lx[6] * t2[12] - lx[5] * t2[11];
+    t[3] = t[3] * pinv[3] - lv[7] * t[13] - lv[6] * t[12] - lv[5] * t[11];
+    t2[3] = t2[3] * pinv[3] - lv[7] * t2[13] - lv[6] * t2[12] - lv[5] * t2[11];
     x1[perm[k0 + 3]] = t[3]; x2[perm[k0 + 3]] = t2[3];
-    t[2] = t[2] * dinv[2] - lx[4] * t[10] - lx[3] * t[8] - lx[2] * t[7];
-    t2[2] = t2[2] * dinv[2] - lx[4] * t2[10] - lx[3] * t2[8] - lx[2] * t2[7];
+    t[2] = t[2] * pinv[2] - lv[4] * t[10] - lv[3] * t[8] - lv[2] * t[7];
+    t2[2] = t2[2] * pinv[2] - lv[4] * t2[10] - lv[3] * t2[8] - lv[2] * t2[7];
     x1[perm[k0 + 2]] = t[2]; x2[perm[k0 + 2]] = t2[2];
-    t[1] = t[1] * dinv[1] - lx[1] * t[10];
-    t2[1] = t2[1] * dinv[1] - lx[1] * t2[10];
+    t[1] = t[1] * pinv[1] - lv[1] * t[10];
+    t2[1] = t2[1] * pinv[1] - lv[1] * t2[10];
     x1[perm[k0 + 1]] = t[1]; x2[perm[k0 + 1]] = t2[1];
-    t[0] = t[0] * dinv[0] - lx[0] * t[10];
-    t2[0] = t2[0] * dinv[0] - lx[0] * t2[10];
+    t[0] = t[0] * pinv[0] - lv[0] * t[10];
+    t2[0] = t2[0] * pinv[0] - lv[0] * t2[10];
     x1[perm[k0 + 0]] = t[0]; x2[perm[k0 + 0]] = t2[0];
 }
 
@@ -4008,7 +4008,7 @@ static void backward_stage2(const pdg_socp_work *w, real *tb, real *tb2, real *x
 /* Up-looking LDL' of the permuted KKT matrix; the forward sweeps of rhs and
  * rhs2 run with it (into res and corr). Returns 0, or -1 if a pivot is not
  * finite. */
-static int ldl_factor(pdg_socp_work *w, const pdg_socp_settings *st)
+static int factor_all_rows(pdg_socp_work *w, const pdg_socp_config *st)
 {
     int k;
 
@@ -4034,7 +4034,7 @@ static int ldl_factor(pdg_socp_work *w, const pdg_socp_settings *st)
  * The forward sweep L y = b runs by rows (columns ascending, so the entry
  * computed last is subtracted last), the backward sweep D L' x = y by
  * columns (rows descending, for the same reason). */
-static void ldl_solve(pdg_socp_work *w, const real *b, real *x)
+static void solve_factored(pdg_socp_work *w, const real *b, real *x)
 {
     real *t = w->scat;
 
@@ -4055,9 +4055,9 @@ static void ldl_solve(pdg_socp_work *w, const real *b, real *x)
 }
 
 /* The backward sweep for the two right-hand sides rhs and rhs2 whose
- * forward sweeps ldl_factor did as it computed L (y1 in res, y2 in corr):
- * x1 = K^{-1} rhs, x2 = K^{-1} rhs2, each bit for bit as ldl_solve. */
-static void ldl_backsolve2(pdg_socp_work *w, real *x1, real *x2)
+ * forward sweeps factor_all_rows did as it computed L (y1 in res, y2 in corr):
+ * x1 = K^{-1} rhs, x2 = K^{-1} rhs2, each bit for bit as solve_factored. */
+static void backward_pair(pdg_socp_work *w, real *x1, real *x2)
 {
 
     int s;
@@ -4071,24 +4071,24 @@ static void ldl_backsolve2(pdg_socp_work *w, real *x1, real *x2)
 
 /* Assemble the scaling block and factor. If a pivot is not finite, raise
  * the static regularisation a hundredfold (kept for the rest of the solve;
- * refinement corrects for it) and try again, up to REG_RAISE_CAP times the
+ * refinement corrects for it) and try again, up to SHIFT_RAISE_CAP times the
  * setting. */
-static int factor_kkt(pdg_socp_work *w, const pdg_socp_settings *st, int init)
+static int assemble_and_factor(pdg_socp_work *w, const pdg_socp_config *st, int init)
 {
     int r;
     for (r = 0; r < 4; ++r) {
         if (r > 0) {
-            if (!(w->reg * REG_RAISE <= st->static_reg * REG_RAISE_CAP)) {
+            if (!(w->shift * SHIFT_RAISE <= st->kkt_shift * SHIFT_RAISE_CAP)) {
                 return -1;
             }
-            w->reg *= REG_RAISE;
+            w->shift *= SHIFT_RAISE;
             kkt_assemble_data(w);
         }
         kkt_assemble_scaling(w, init);
         {
-            const int dyn = w->dynamic_reg_count;
-            if (ldl_factor(w, st) == 0) {
-                w->factor_static_only = w->dynamic_reg_count == dyn;
+            const int dyn = w->pivots_replaced;
+            if (factor_all_rows(w, st) == 0) {
+                w->factor_shift_only = w->pivots_replaced == dyn;
                 return 0;
             }
         }
@@ -4122,33 +4122,33 @@ static void save_iterate(pdg_socp_work *w)
     w->backup_valid = 1;
 }
 
-/* Keep the iterate just measured as the reduced-accuracy fallback if it
- * meets the reduced tolerances better than the one kept so far (merit: the
+/* Keep the iterate just measured as the coarse fallback if it
+ * meets the coarse stops better than the one kept so far (merit: the
  * largest ratio of a residual or the gap to its tolerance). */
-static void keep_reduced(pdg_socp_work *w, real merit)
+static void keep_coarse(pdg_socp_work *w, real merit)
 {
-    if (w->have_reduced && !(merit < w->reduced_merit)) {
+    if (w->have_coarse && !(merit < w->coarse_merit)) {
         return;
     }
-    copy_iterate(w->xr, w->yr, w->zr, w->sr, w->x, w->y, w->z, w->s);
-    w->taur = w->tau;
-    w->kappar = w->kappa;
-    w->pres_r = w->pres;
-    w->dres_r = w->dres;
-    w->gap_r = w->gap;
-    w->reduced_merit = merit;
-    w->have_reduced = 1;
+    copy_iterate(w->x_coarse, w->y_coarse, w->z_coarse, w->s_coarse, w->x, w->y, w->z, w->s);
+    w->tau_coarse = w->tau;
+    w->kappa_coarse = w->kappa;
+    w->primal_residual_coarse = w->primal_residual;
+    w->dual_residual_coarse = w->dual_residual;
+    w->duality_gap_coarse = w->duality_gap;
+    w->coarse_merit = merit;
+    w->have_coarse = 1;
 }
 
-/* Back to the kept fallback: SOLVED_REDUCED, with its residuals. */
-static void restore_reduced(pdg_socp_work *w)
+/* Back to the kept fallback: CONVERGED_COARSE, with its residuals. */
+static void restore_coarse(pdg_socp_work *w)
 {
-    copy_iterate(w->x, w->y, w->z, w->s, w->xr, w->yr, w->zr, w->sr);
-    w->tau = w->taur;
-    w->kappa = w->kappar;
-    w->pres = w->pres_r;
-    w->dres = w->dres_r;
-    w->gap = w->gap_r;
+    copy_iterate(w->x, w->y, w->z, w->s, w->x_coarse, w->y_coarse, w->z_coarse, w->s_coarse);
+    w->tau = w->tau_coarse;
+    w->kappa = w->kappa_coarse;
+    w->primal_residual = w->primal_residual_coarse;
+    w->dual_residual = w->dual_residual_coarse;
+    w->duality_gap = w->duality_gap_coarse;
 }
 
 static void restore_iterate(pdg_socp_work *w)
@@ -4161,13 +4161,13 @@ static void restore_iterate(pdg_socp_work *w)
 /* ... and go back to it with a hundredfold static regularisation when the
  * iteration broke down (the refinement then carries more of the accuracy).
  * Returns 1 if the caller should redo the iteration, 0 if out of room. */
-static int recover(pdg_socp_work *w, const pdg_socp_settings *st)
+static int recover(pdg_socp_work *w, const pdg_socp_config *st)
 {
-    if (!w->backup_valid || !(w->reg * REG_RAISE <= st->static_reg * REG_RAISE_CAP)) {
+    if (!w->backup_valid || !(w->shift * SHIFT_RAISE <= st->kkt_shift * SHIFT_RAISE_CAP)) {
         return 0;
     }
     restore_iterate(w);
-    w->reg *= REG_RAISE;
+    w->shift *= SHIFT_RAISE;
     w->stall = 0;                  /* a new regularisation: a fresh window */
     w->recoveries += 1;
     kkt_assemble_data(w);
@@ -4177,7 +4177,7 @@ static int recover(pdg_socp_work *w, const pdg_socp_settings *st)
 /* res = b - K0 x with the unregularised KKT matrix (W'W, or I when init);
  * returns the largest |entry| of res (entries that are not numbers are
  * skipped, as by norm_inf). */
-static real kkt_residual(pdg_socp_work *w, const real *b, const real *x, int init)
+static real system_residual(pdg_socp_work *w, const real *b, const real *x, int init)
 {
     real *res = w->res;
     real rn = R(0);
@@ -4205,42 +4205,42 @@ static real kkt_residual(pdg_socp_work *w, const real *b, const real *x, int ini
 }
 
 /* x = K0^{-1} b: regularised solve plus iterative refinement, which stops
- * when the residual is below refine_tol (1 + the largest |entry| of c, b, h)
+ * when the residual is below correction_stop (1 + the largest |entry| of c, b, h)
  * or stops halving. */
-static void kkt_refine(pdg_socp_work *w, const pdg_socp_settings *st,
-                       const real *b, real *x, int init, int max_refine)
+static void correct_solution(pdg_socp_work *w, const pdg_socp_config *st,
+                       const real *b, real *x, int init, int max_corrections)
 {
     const real bn = w->data_norm;
     real prev = R(HUGE_VAL);
     int it, k;
     /* No pivot was replaced, so the factor is that of K0 + E, E the static
-     * regularisation (+-reg on the diagonal), and the residual is E x plus
-     * rounding: when REFINE_SKIP_MARGIN times reg |x| is already below the
+     * shift (+-shift on the diagonal), and the residual is E x plus
+     * rounding: when CORRECTION_SKIP_MARGIN times shift |x| is already below the
      * floor, the residual need not be formed. */
-    if (!init && max_refine > 0 && w->factor_static_only
-        && REFINE_SKIP_MARGIN * w->reg * norm_inf(x, NKKT) <= w->refine_floor) {
+    if (!init && max_corrections > 0 && w->factor_shift_only
+        && CORRECTION_SKIP_MARGIN * w->shift * norm_inf(x, NKKT) <= w->correction_floor) {
         return;
     }
-    for (it = 0; it < max_refine && it < st->refine_steps && it < 32; ++it) {
-        const real rn = kkt_residual(w, b, x, init);
-        if (!(rn > st->refine_tol * (R(1) + bn)) || !(rn > w->refine_floor)
+    for (it = 0; it < max_corrections && it < st->correction_passes_max && it < 32; ++it) {
+        const real rn = system_residual(w, b, x, init);
+        if (!(rn > st->correction_stop * (R(1) + bn)) || !(rn > w->correction_floor)
             || !(rn < R(0.5) * prev)) {
             break;
         }
         prev = rn;
-        ldl_solve(w, w->res, w->corr);
-        w->refine_count += 1;
+        solve_factored(w, w->res, w->corr);
+        w->correction_passes += 1;
         EACH(k, NKKT) {
             x[k] += w->corr[k];
         }
     }
 }
 
-static void kkt_solve(pdg_socp_work *w, const pdg_socp_settings *st,
-                      const real *b, real *x, int init, int max_refine)
+static void solve_corrected(pdg_socp_work *w, const pdg_socp_config *st,
+                      const real *b, real *x, int init, int max_corrections)
 {
-    ldl_solve(w, b, x);
-    kkt_refine(w, st, b, x, init, max_refine);
+    solve_factored(w, b, x);
+    correct_solution(w, st, b, x, init, max_corrections);
 }
 
 /* c'x + b'y + h'z of a KKT-sized vector u = (x, y, z). */
@@ -4310,7 +4310,7 @@ static void slack_direction(pdg_socp_work *w, const real *v, real dtau)
         t[i] = wdz + v[i];
         w->ds[i] = -(t[i] * w->ntw[i]);
     }
-    for (c = 0; c < NSOC; ++c) {
+    for (c = 0; c < NUM_SOC; ++c) {
         const int o = soc_start[c];
         const int q = soc_size[c];
         const real *wb = w->ntw + o;
@@ -4346,7 +4346,7 @@ static int finish(pdg_socp_work *w, int status, real by_hz, real cx)
 {
     int i;
     const real *c = w->data + OFF_C;
-    if (status == PDG_SOCP_INFEASIBLE) {
+    if (status == PDG_SOCP_INFEASIBLE_CERTIFIED) {
         const real f = R(1) / (-by_hz);
         EACH(i, NEQ) {
             w->y[i] *= f;
@@ -4355,7 +4355,7 @@ static int finish(pdg_socp_work *w, int status, real by_hz, real cx)
             w->z[i] *= f;
         }
         w->objective = R(HUGE_VAL);
-    } else if (status == PDG_SOCP_UNBOUNDED) {
+    } else if (status == PDG_SOCP_UNBOUNDED_CERTIFIED) {
         const real f = R(1) / (-cx);
         EACH(i, NVAR) {
             w->x[i] *= f;
@@ -4383,23 +4383,23 @@ static int finish(pdg_socp_work *w, int status, real by_hz, real cx)
 }
 
 /* The end of a solve that did not reach the full tolerances: the best
- * iterate that met the reduced ones, as SOLVED_REDUCED, if there was one;
- * else status (NUMERICAL or MAX_ITER). */
+ * iterate that met the coarse ones, as CONVERGED_COARSE, if there was one;
+ * else status (BREAKDOWN or ITERATION_CAP). */
 static int fall_back(pdg_socp_work *w, int status, real by_hz, real cx)
 {
-    if (w->have_reduced) {
-        restore_reduced(w);
-        return finish(w, PDG_SOCP_SOLVED_REDUCED, by_hz, cx);
+    if (w->have_coarse) {
+        restore_coarse(w);
+        return finish(w, PDG_SOCP_CONVERGED_COARSE, by_hz, cx);
     }
     return finish(w, status, by_hz, cx);
 }
 
-/* A breakdown (causes 1 to 3, or CAUSE_NO_PROGRESS) before the full
- * tolerances were reached. */
+/* A breakdown (PIVOT_NOT_FINITE, LOST_INTERIOR, STEP_VANISHED or
+ * NO_PROGRESS) before the full stops were reached. */
 static int breakdown(pdg_socp_work *w, int cause, real by_hz, real cx)
 {
-    w->numerical_cause = cause;
-    return fall_back(w, PDG_SOCP_NUMERICAL, by_hz, cx);
+    w->breakdown_cause = cause;
+    return fall_back(w, PDG_SOCP_BREAKDOWN, by_hz, cx);
 }
 
 /* Gap tolerance: rel times the smaller |objective|, at least abs. */
@@ -4410,55 +4410,55 @@ static real gap_threshold(real pobj, real dobj, real rel, real abs_tol)
 }
 
 /* Distance of the iterate last measured to the optimality verdict at
- * tolerances (tol_feas, thr) on the residuals and the gap: the largest
+ * tolerances (residual_stop, thr) on the residuals and the gap: the largest
  * ratio of a measure to its tolerance (1 = met). */
-static real optimality_merit(const pdg_socp_work *w, real tol_feas, real thr)
+static real optimality_merit(const pdg_socp_work *w, real residual_stop, real thr)
 {
-    real merit = w->pres / tol_feas;
-    const real md = w->dres / tol_feas;
-    const real mg = w->gap / thr;
+    real merit = w->primal_residual / residual_stop;
+    const real md = w->dual_residual / residual_stop;
+    const real mg = w->duality_gap / thr;
     merit = md > merit ? md : merit;
     return mg > merit ? mg : merit;
 }
 
 /* ---- the solver -------------------------------------------------------------- */
 int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
-                            const pdg_socp_settings *s_in)
+                            const pdg_socp_config *s_in)
 {
-    pdg_socp_settings defaults;
-    const pdg_socp_settings *st = s_in;
+    pdg_socp_config defaults;
+    const pdg_socp_config *st = s_in;
     const real *c, *b, *h;
     real nc, nb, nh, by_hz = R(0), cx = R(0);
-    int max_iter, it, i;
+    int iteration_cap, it, i;
 
     if (w == 0) {
-        return PDG_SOCP_NUMERICAL;
+        return PDG_SOCP_BREAKDOWN;
     }
-    if (params == 0 && PDG_SOCP_NPARAM > 0) {
-        w->status = PDG_SOCP_NUMERICAL;
-        w->numerical_cause = 5;
+    if (params == 0 && PDG_SOCP_NUM_PARAMS > 0) {
+        w->status = PDG_SOCP_BREAKDOWN;
+        w->breakdown_cause = PDG_SOCP_CAUSE_NO_PARAMS;
         w->iterations = 0;
-        return PDG_SOCP_NUMERICAL;
+        return PDG_SOCP_BREAKDOWN;
     }
     if (st == 0) {
-        pdg_socp_settings_default(&defaults);
+        pdg_socp_config_init(&defaults);
         st = &defaults;
     }
-    max_iter = st->max_iter;
-    if (max_iter < 0) {
-        max_iter = 0;
+    iteration_cap = st->iteration_cap;
+    if (iteration_cap < 0) {
+        iteration_cap = 0;
     }
-    if (max_iter > MAX_ITER_CAP) {
-        max_iter = MAX_ITER_CAP;
+    if (iteration_cap > ITERATIONS_HARD_LIMIT) {
+        iteration_cap = ITERATIONS_HARD_LIMIT;
     }
     w->iterations = 0;
-    w->dynamic_reg_count = 0;
-    w->numerical_cause = 0;
-    w->refine_count = 0;
-    w->pres = w->dres = w->gap = w->mu = R(HUGE_VAL);
+    w->pivots_replaced = 0;
+    w->breakdown_cause = PDG_SOCP_CAUSE_NONE;
+    w->correction_passes = 0;
+    w->primal_residual = w->dual_residual = w->duality_gap = w->mu = R(HUGE_VAL);
     w->tau = R(1);
     w->kappa = R(1);
-    load_data(w, params);
+    params_to_data(w, params);
     c = w->data + OFF_C;
     b = w->data + OFF_B;
     h = w->data + OFF_H;
@@ -4475,11 +4475,11 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
 
     /* Starting point (Vandenberghe 2010, conelp): least-squares primal and
      * dual points from the W = I system, shifted into the cone. */
-    w->reg = st->static_reg;
-    w->refine_floor = R(0);
+    w->shift = st->kkt_shift;
+    w->correction_floor = R(0);
     w->backup_valid = 0;
-    w->have_reduced = 0;
-    w->reduced_merit = R(HUGE_VAL);
+    w->have_coarse = 0;
+    w->coarse_merit = R(HUGE_VAL);
     w->best_merit = R(HUGE_VAL);
     w->stall = 0;
     w->recoveries = 0;
@@ -4497,13 +4497,13 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         w->rhs[NVAR + NEQ + i] = h[i];
         w->rhs2[NVAR + NEQ + i] = R(0);
     }
-    if (factor_kkt(w, st, 1) != 0) {
-        w->numerical_cause = 1;
-        return finish(w, PDG_SOCP_NUMERICAL, by_hz, cx);
+    if (assemble_and_factor(w, st, 1) != 0) {
+        w->breakdown_cause = PDG_SOCP_CAUSE_PIVOT_NOT_FINITE;
+        return finish(w, PDG_SOCP_BREAKDOWN, by_hz, cx);
     }
-    ldl_backsolve2(w, w->u0, w->u1);
-    kkt_refine(w, st, w->rhs, w->u0, 1, 32);
-    kkt_refine(w, st, w->rhs2, w->u1, 1, 32);
+    backward_pair(w, w->u0, w->u1);
+    correct_solution(w, st, w->rhs, w->u0, 1, 32);
+    correct_solution(w, st, w->rhs2, w->u1, 1, 32);
     EACH(i, NVAR) {
         w->x[i] = w->u0[i];
     }
@@ -4529,15 +4529,15 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         w->rhs[NVAR + NEQ + i] = h[i];
     }
 
-    for (it = 0; it <= max_iter; ++it) {
+    for (it = 0; it <= iteration_cap; ++it) {
         real hz, rt, sz, mu, pobj, dobj, thr, cbh1, alpha, sig, dkap, merit;
         w->iterations = it;
-        /* scaling point; fails if the last step left the cone in rounding */
+        /* scaling point; fails if rounding in the last step lost the cone's interior */
         if (nt_scaling(w) != 0) {
             if (recover(w, st)) {
                 continue;
             }
-            return breakdown(w, 2, by_hz, cx);
+            return breakdown(w, PDG_SOCP_CAUSE_LOST_INTERIOR, by_hz, cx);
         }
         /* residuals of the embedding */
         kkt_offdiag_mul(w, w->x, w->y, w->z, w->rx, w->ry, w->rz);
@@ -4558,39 +4558,39 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         mu = (sz + w->tau * w->kappa) / R(DEGREE + 1);
         w->mu = mu;
         /* inexact Newton: directions need a residual well below mu only */
-        w->refine_floor = REFINE_MU_FACTOR * mu;
+        w->correction_floor = CORRECTION_MU_FACTOR * mu;
         {
             const real pr1 = norm2(w->ry, NEQ) / w->tau / (R(1) + nb);
             const real pr2 = norm2(w->rz, NCON) / w->tau / (R(1) + nh);
-            w->pres = pr1 > pr2 ? pr1 : pr2;
-            w->dres = norm2(w->rx, NVAR) / w->tau / (R(1) + nc);
+            w->primal_residual = pr1 > pr2 ? pr1 : pr2;
+            w->dual_residual = norm2(w->rx, NVAR) / w->tau / (R(1) + nc);
         }
         pobj = cx / w->tau;
         dobj = -by_hz / w->tau;
-        w->gap = FABS(pobj - dobj);
-        thr = gap_threshold(pobj, dobj, st->tol_gap_rel, st->tol_gap_abs);
-        if (!(mu == mu) || !(w->pres == w->pres) || !(w->dres == w->dres)) {
+        w->duality_gap = FABS(pobj - dobj);
+        thr = gap_threshold(pobj, dobj, st->gap_rel_stop, st->gap_abs_stop);
+        if (!(mu == mu) || !(w->primal_residual == w->primal_residual) || !(w->dual_residual == w->dual_residual)) {
             if (recover(w, st)) {
                 continue;
             }
-            w->numerical_cause = 4;
-            return finish(w, PDG_SOCP_NUMERICAL, by_hz, cx);
+            w->breakdown_cause = PDG_SOCP_CAUSE_NOT_A_NUMBER;
+            return finish(w, PDG_SOCP_BREAKDOWN, by_hz, cx);
         }
-        if (w->pres <= st->tol_feas && w->dres <= st->tol_feas
-            && sz / (w->tau * w->tau) <= thr && w->gap <= thr) {
-            return finish(w, PDG_SOCP_SOLVED, by_hz, cx);
+        if (w->primal_residual <= st->residual_stop && w->dual_residual <= st->residual_stop
+            && sz / (w->tau * w->tau) <= thr && w->duality_gap <= thr) {
+            return finish(w, PDG_SOCP_CONVERGED, by_hz, cx);
         }
         {
-            const real thr_r = gap_threshold(pobj, dobj, st->tol_gap_reduced,
-                                             st->tol_gap_reduced);
-            if (w->pres <= st->tol_feas_reduced && w->dres <= st->tol_feas_reduced
-                && sz / (w->tau * w->tau) <= thr_r && w->gap <= thr_r) {
-                keep_reduced(w, optimality_merit(w, st->tol_feas_reduced, thr_r));
+            const real thr_r = gap_threshold(pobj, dobj, st->gap_stop_coarse,
+                                             st->gap_stop_coarse);
+            if (w->primal_residual <= st->residual_stop_coarse && w->dual_residual <= st->residual_stop_coarse
+                && sz / (w->tau * w->tau) <= thr_r && w->duality_gap <= thr_r) {
+                keep_coarse(w, optimality_merit(w, st->residual_stop_coarse, thr_r));
             }
         }
         /* distance to the optimality verdict (1 = met), for the progress
          * guard below */
-        merit = optimality_merit(w, st->tol_feas, thr);
+        merit = optimality_merit(w, st->residual_stop, thr);
         {
             const real ms = sz / (w->tau * w->tau) / thr;
             merit = ms > merit ? ms : merit;
@@ -4602,10 +4602,10 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
                 w->dx[i] = w->rx[i] - c[i] * w->tau;
             }
             cert = norm2(w->dx, NVAR);
-            if (cert <= st->tol_infeas * (-by_hz)) {
-                return finish(w, PDG_SOCP_INFEASIBLE, by_hz, cx);
+            if (cert <= st->certificate_stop * (-by_hz)) {
+                return finish(w, PDG_SOCP_INFEASIBLE_CERTIFIED, by_hz, cx);
             }
-            cert = cert / (st->tol_infeas * (-by_hz));
+            cert = cert / (st->certificate_stop * (-by_hz));
             merit = cert < merit ? cert : merit;
         }
         if (cx < R(0)) {
@@ -4618,10 +4618,10 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
             }
             r1 = norm2(w->dy, NEQ);
             r2 = norm2(w->dz, NCON);
-            if ((r1 > r2 ? r1 : r2) <= st->tol_infeas * (-cx)) {
-                return finish(w, PDG_SOCP_UNBOUNDED, by_hz, cx);
+            if ((r1 > r2 ? r1 : r2) <= st->certificate_stop * (-cx)) {
+                return finish(w, PDG_SOCP_UNBOUNDED_CERTIFIED, by_hz, cx);
             }
-            r1 = (r1 > r2 ? r1 : r2) / (st->tol_infeas * (-cx));
+            r1 = (r1 > r2 ? r1 : r2) / (st->certificate_stop * (-cx));
             merit = r1 < merit ? r1 : merit;
         }
         /* progress guard: no verdict came twice as close in STALL_ITERS
@@ -4637,7 +4637,7 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
                 return breakdown(w, PDG_SOCP_CAUSE_NO_PROGRESS, by_hz, cx);
             }
         }
-        if (it == max_iter) {
+        if (it == iteration_cap) {
             break;
         }
 
@@ -4650,16 +4650,16 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         direction_rhs(w, R(0), w->rhs2);
         /* factorisation */
         save_iterate(w);
-        if (factor_kkt(w, st, 0) != 0) {
+        if (assemble_and_factor(w, st, 0) != 0) {
             if (recover(w, st)) {
                 continue;
             }
-            return breakdown(w, 1, by_hz, cx);
+            return breakdown(w, PDG_SOCP_CAUSE_PIVOT_NOT_FINITE, by_hz, cx);
         }
-        ldl_backsolve2(w, w->u1, w->u0);
-        kkt_refine(w, st, w->rhs, w->u1, 0, TAU_REFINE);
+        backward_pair(w, w->u1, w->u0);
+        correct_solution(w, st, w->rhs, w->u1, 0, TAU_CORRECTIONS);
         cbh1 = cbh_dot(w, w->u1);
-        kkt_refine(w, st, w->rhs2, w->u0, 0, PREDICTOR_REFINE);
+        correct_solution(w, st, w->rhs2, w->u0, 0, PREDICTOR_CORRECTIONS);
         dkap = w->kappa * w->tau;
         direction(w, R(0), rt, dkap, cbh1, 0);
         slack_direction(w, w->lambda, w->dtau);
@@ -4674,10 +4674,10 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         corrector_terms(w, sig * mu);           /* dsa := lambda \ ds_comp, t1 := W dsa */
         dkap = w->kappa * w->tau + w->dkappa * w->dtau - sig * mu;
         direction_rhs(w, sig, w->rhs2);         /* the predictor's is spent */
-        kkt_solve(w, st, w->rhs2, w->u0, 0, 32);
+        solve_corrected(w, st, w->rhs2, w->u0, 0, 32);
         direction(w, sig, rt, dkap, cbh1, 1);
         slack_direction(w, w->dsa, w->dtau);
-        alpha = st->step_fraction * max_step(w);
+        alpha = st->boundary_step_share * max_step(w);
         if (alpha > R(1)) {
             alpha = R(1);
         }
@@ -4685,7 +4685,7 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
             if (recover(w, st)) {
                 continue;
             }
-            return breakdown(w, 3, by_hz, cx);
+            return breakdown(w, PDG_SOCP_CAUSE_STEP_VANISHED, by_hz, cx);
         }
         EACH(i, NVAR) {
             w->x[i] += alpha * w->dx[i];
@@ -4700,6 +4700,6 @@ int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
         w->tau += alpha * w->dtau;
         w->kappa += alpha * w->dkappa;
     }
-    /* out of iterations: the reduced-accuracy fallback, if any */
-    return fall_back(w, PDG_SOCP_MAX_ITER, by_hz, cx);
+    /* out of iterations: the coarse fallback, if any */
+    return fall_back(w, PDG_SOCP_ITERATION_CAP, by_hz, cx);
 }

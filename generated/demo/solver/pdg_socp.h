@@ -7,22 +7,22 @@
  * whose data (c, d, A, b, G, h) are affine in a parameter vector. Method:
  * homogeneous self-dual embedding, Nesterov-Todd scaling, Mehrotra
  * predictor-corrector, sparse LDL' of the quasi-definite KKT system with a
- * pattern fixed at generation time (static + dynamic regularisation,
- * iterative refinement). An iteration that breaks down (iterate out of the
- * cone, not-a-number, failed factorisation, no step) is redone from its
- * start with the static regularisation raised (bounded). No heap, no
+ * pattern fixed at generation time (a static diagonal shift, a dynamic
+ * pivot rule, iterative refinement). An iteration that breaks down (iterate
+ * off the cone's interior, not-a-number, failed factorisation, no step) is
+ * redone from its start with the static shift raised (bounded). No heap, no
  * recursion; all state lives in the caller's pdg_socp_work.
  * Precision: double.
  *
  * Stopping rules (x, y, z, s, tau, kappa are the embedding's iterates):
- *   solved      when  ||A x/tau - b|| / (1 + ||b||)               <= tol_feas,
- *                     ||G x/tau + s/tau - h|| / (1 + ||h||)        <= tol_feas,
- *                     ||A'y/tau + G'z/tau + c|| / (1 + ||c||)      <= tol_feas,
- *                     s'z/tau^2 and |c'x + b'y + h'z|/tau          <= max(tol_gap_abs,
- *                               tol_gap_rel * min(|c'x|, |b'y + h'z|)/tau)
- *   infeasible  when  b'y + h'z < 0 and ||A'y + G'z|| <= tol_infeas * (-(b'y + h'z))
+ *   converged   when  ||A x/tau - b|| / (1 + ||b||)               <= residual_stop,
+ *                     ||G x/tau + s/tau - h|| / (1 + ||h||)        <= residual_stop,
+ *                     ||A'y/tau + G'z/tau + c|| / (1 + ||c||)      <= residual_stop,
+ *                     s'z/tau^2 and |c'x + b'y + h'z|/tau          <= max(gap_abs_stop,
+ *                               gap_rel_stop * min(|c'x|, |b'y + h'z|)/tau)
+ *   infeasible  when  b'y + h'z < 0 and ||A'y + G'z|| <= certificate_stop * (-(b'y + h'z))
  *                     (y, z returned scaled so that b'y + h'z = -1: a Farkas certificate)
- *   unbounded   when  c'x < 0 and max(||A x||, ||G x + s||) <= tol_infeas * (-c'x)
+ *   unbounded   when  c'x < 0 and max(||A x||, ||G x + s||) <= certificate_stop * (-c'x)
  *                     (x, s returned scaled so that c'x = -1)
  * Norms are Euclidean. Generated file: do not edit.
  */
@@ -31,20 +31,21 @@
 
 typedef double pdg_real;
 
-#define PDG_SOCP_NPARAM 414
-#define PDG_SOCP_NVAR 607
-#define PDG_SOCP_NEQ 363
-#define PDG_SOCP_NCON 947
-#define PDG_SOCP_NNONNEG 251
-#define PDG_SOCP_NSOC 199
-#define PDG_SOCP_NKKT 1917
+#define PDG_SOCP_NUM_PARAMS 414
+#define PDG_SOCP_NUM_VARIABLES 607
+#define PDG_SOCP_NUM_EQUALITIES 363
+#define PDG_SOCP_NUM_CONE_ROWS 947
+#define PDG_SOCP_NUM_NONNEG_ROWS 251
+#define PDG_SOCP_NUM_SECOND_ORDER_CONES 199
+#define PDG_SOCP_KKT_DIM 1917
 #define PDG_SOCP_KKT_NNZ 5172
 #define PDG_SOCP_L_NNZ 8497
-#define PDG_SOCP_NDATA 4279
-#define PDG_SOCP_MAX_ITER_CAP 200
+#define PDG_SOCP_DATA_LEN 4279
+#define PDG_SOCP_ITERATIONS_HARD_LIMIT 200
 
 /* Offsets of the problem data inside pdg_socp_work.data:
- * c (NVAR), d (1), b (NEQ), h (NCON), values of A (CSC), values of G (CSC). */
+ * c (NUM_VARIABLES), d (1), b (NUM_EQUALITIES), h (NUM_CONE_ROWS), values of A
+ * (CSC), values of G (CSC). */
 #define PDG_SOCP_OFF_C 0
 #define PDG_SOCP_OFF_D 607
 #define PDG_SOCP_OFF_B 608
@@ -52,43 +53,91 @@ typedef double pdg_real;
 #define PDG_SOCP_OFF_A 1918
 #define PDG_SOCP_OFF_G 3131
 
+/* Statuses of a solve (w->status, and the return value of pdg_socp_solve). */
 enum pdg_socp_status {
-    PDG_SOCP_SOLVED = 0,      /* optimal to the tolerances below */
-    PDG_SOCP_INFEASIBLE = 1,  /* primal infeasible; y, z hold the certificate */
-    PDG_SOCP_UNBOUNDED = 2,   /* dual infeasible; x, s hold the certificate */
-    PDG_SOCP_MAX_ITER = 3,    /* iteration limit reached (x, y, z, s: last iterate / tau) */
-    PDG_SOCP_NUMERICAL = 4,   /* breakdown even after raising the regularisation
-                                          (see numerical_cause) */
-    PDG_SOCP_SOLVED_REDUCED = 5 /* optimal to the reduced tolerances only: the full
-                                            ones were not reached before a breakdown or the
-                                            iteration limit (numerical_cause says which) */
+    PDG_SOCP_CONVERGED = 0,
+        /* residuals below residual_stop and gap below the gap stops: x, y, z, s are the
+           solution */
+    PDG_SOCP_INFEASIBLE_CERTIFIED = 1,
+        /* primal infeasibility proven: y, z hold a Farkas certificate, scaled so that b'y +
+           h'z = -1 */
+    PDG_SOCP_UNBOUNDED_CERTIFIED = 2,
+        /* dual infeasibility proven (objective unbounded below): x, s hold an improving ray,
+           scaled so that c'x = -1 */
+    PDG_SOCP_ITERATION_CAP = 3,
+        /* iteration_cap reached with no verdict and no coarse fallback (x, y, z, s: the last
+           iterate divided by tau) */
+    PDG_SOCP_BREAKDOWN = 4,
+        /* the iteration broke down even with the raised kkt_shift, or no verdict came closer
+           (breakdown_cause says which); no answer */
+    PDG_SOCP_CONVERGED_COARSE = 5
+        /* only the coarse stops were met: a breakdown or the iteration cap came first
+           (breakdown_cause says which); x, y, z, s are the best iterate that met them */
 };
 
-/* numerical_cause of a solve ended by the progress guard (see the workspace) */
-#define PDG_SOCP_CAUSE_NO_PROGRESS 6
+/* Why a solve broke down (w->breakdown_cause; NONE unless the status is
+ * BREAKDOWN, or CONVERGED_COARSE after a breakdown). */
+enum pdg_socp_cause {
+    PDG_SOCP_CAUSE_NONE = 0,
+        /* no breakdown */
+    PDG_SOCP_CAUSE_PIVOT_NOT_FINITE = 1,
+        /* a pivot of the factorisation was not finite at the largest kkt_shift allowed */
+    PDG_SOCP_CAUSE_LOST_INTERIOR = 2,
+        /* rounding in a step put s or z on or outside the boundary of the cone */
+    PDG_SOCP_CAUSE_STEP_VANISHED = 3,
+        /* the step length to take fell below 1e-10 */
+    PDG_SOCP_CAUSE_NOT_A_NUMBER = 4,
+        /* a residual or mu was not a number (bad parameters or overflow) */
+    PDG_SOCP_CAUSE_NO_PARAMS = 5,
+        /* params was NULL */
+    PDG_SOCP_CAUSE_NO_PROGRESS = 6
+        /* progress guard: no verdict (optimal, infeasible, unbounded) came twice as close to
+           its stop in 20 iterations */
+};
 
+/* Run-time settings; fill with pdg_socp_config_init(), then change what
+ * you need. Every value is relative to the scaled problem's data (no
+ * physical unit). */
 typedef struct {
-    pdg_real tol_gap_abs;       /* default 1e-08 */
-    pdg_real tol_gap_rel;       /* default 1e-08 */
-    pdg_real tol_feas;          /* default 1e-08 */
-    pdg_real tol_infeas;        /* default 1e-08 */
-    pdg_real tol_feas_reduced;  /* default 1e-06: SOLVED_REDUCED residuals ... */
-    pdg_real tol_gap_reduced;   /* default 1e-07: ... and gap (absolute and relative) */
-    int max_iter;                        /* default 100; clamped to [0, MAX_ITER_CAP] */
-    pdg_real static_reg;        /* default 1e-08: +eps on the x block, -eps on y, z */
-    pdg_real dynamic_reg_eps;   /* default 1e-13: pivots of wrong sign or below this ... */
-    pdg_real dynamic_reg_delta; /* default 2e-07: ... are replaced by +-delta */
-    int refine_steps;                    /* default 5: iterative refinement steps per solve */
-    pdg_real refine_tol;        /* default 1e-12: stop refining when the KKT residual is below
-                                            this times (1 + max |c|, |b|, |h|), or below 0.01 mu */
-    pdg_real step_fraction;     /* default 0.99: fraction of the step to the cone boundary */
-} pdg_socp_settings;
+    pdg_real gap_abs_stop;
+        /* default 1e-08: converged needs s'z/tau^2 and the duality gap below the larger of
+           this ... */
+    pdg_real gap_rel_stop;
+        /* default 1e-08: ... and this times the smaller |objective| */
+    pdg_real residual_stop;
+        /* default 1e-08: converged needs the relative primal and dual residuals below this */
+    pdg_real certificate_stop;
+        /* default 1e-08: an infeasibility or unboundedness certificate is accepted when its
+           residual is below this times its margin */
+    pdg_real residual_stop_coarse;
+        /* default 1e-06: CONVERGED_COARSE needs the residuals below this ... */
+    pdg_real gap_stop_coarse;
+        /* default 1e-07: ... and the gap below this, absolute and relative */
+    int iteration_cap;
+        /* default 100: most interior-point iterations per solve; clamped to [0,
+           ITERATIONS_HARD_LIMIT] */
+    pdg_real kkt_shift;
+        /* default 1e-08: static diagonal shift of the KKT matrix: +shift on the x block,
+           -shift on the y and z blocks */
+    pdg_real pivot_floor;
+        /* default 1e-13: a pivot of the wrong sign or below this in magnitude ... */
+    pdg_real pivot_replacement;
+        /* default 2e-07: ... is replaced by this, with the expected sign */
+    int correction_passes_max;
+        /* default 5: most iterative-refinement passes per KKT solve */
+    pdg_real correction_stop;
+        /* default 1e-12: iterative refinement stops when the KKT residual is below this
+           times (1 + the largest |c|, |b|, |h|), or below CORRECTION_MU_FACTOR (socp.c)
+           times mu */
+    pdg_real boundary_step_share;
+        /* default 0.99: share of the step to the cone's boundary that is taken, in (0, 1) */
+} pdg_socp_config;
 
 typedef struct {
     /* problem data at the current parameters (layout: OFF_* above) */
-    pdg_real data[PDG_SOCP_NDATA];
+    pdg_real data[PDG_SOCP_DATA_LEN];
     /* solution (after a solve) or iterate (during one) */
-    pdg_real x[PDG_SOCP_NVAR];
+    pdg_real x[PDG_SOCP_NUM_VARIABLES];
     pdg_real y[363];       /* multipliers of A x = b */
     pdg_real z[947];       /* multipliers of G x + s = h (in K) */
     pdg_real s[947];       /* slacks (in K) */
@@ -104,21 +153,21 @@ typedef struct {
     pdg_real geo_z[4 * 199];
     /* KKT matrix (permuted upper CSC values) and its LDL' factor */
     pdg_real kkt[PDG_SOCP_KKT_NNZ];
-    pdg_real lx[8497];   /* L by columns (pattern l_ptr, l_row) */
-    pdg_real dinv[PDG_SOCP_NKKT];
-    pdg_real scat[PDG_SOCP_NKKT];
+    pdg_real l_val[8497];   /* L by columns (pattern l_ptr, l_row) */
+    pdg_real pivot_inv[PDG_SOCP_KKT_DIM];   /* 1 / the pivots of D */
+    pdg_real scat[PDG_SOCP_KKT_DIM];
     /* right-hand sides, solutions, refinement scratch */
-    pdg_real rhs[PDG_SOCP_NKKT];
-    pdg_real rhs2[PDG_SOCP_NKKT];
-    pdg_real u0[PDG_SOCP_NKKT];
-    pdg_real u1[PDG_SOCP_NKKT];
-    pdg_real res[PDG_SOCP_NKKT];
-    pdg_real corr[PDG_SOCP_NKKT];
+    pdg_real rhs[PDG_SOCP_KKT_DIM];
+    pdg_real rhs2[PDG_SOCP_KKT_DIM];
+    pdg_real u0[PDG_SOCP_KKT_DIM];
+    pdg_real u1[PDG_SOCP_KKT_DIM];
+    pdg_real res[PDG_SOCP_KKT_DIM];
+    pdg_real corr[PDG_SOCP_KKT_DIM];
     /* residuals and directions */
-    pdg_real rx[PDG_SOCP_NVAR];
+    pdg_real rx[PDG_SOCP_NUM_VARIABLES];
     pdg_real ry[363];
     pdg_real rz[947];
-    pdg_real dx[PDG_SOCP_NVAR];
+    pdg_real dx[PDG_SOCP_NUM_VARIABLES];
     pdg_real dy[363];
     pdg_real dz[947];
     pdg_real ds[947];
@@ -128,48 +177,48 @@ typedef struct {
     pdg_real t2[947];
     pdg_real dtau, dkappa;
     /* the iterate at the start of the current iteration (for a retry) */
-    pdg_real xb[PDG_SOCP_NVAR];
+    pdg_real xb[PDG_SOCP_NUM_VARIABLES];
     pdg_real yb[363];
     pdg_real zb[947];
     pdg_real sb[947];
     pdg_real taub, kappab;
-    /* the best iterate that met the reduced tolerances (SOLVED_REDUCED) */
-    pdg_real xr[PDG_SOCP_NVAR];
-    pdg_real yr[363];
-    pdg_real zr[947];
-    pdg_real sr[947];
-    pdg_real taur, kappar, reduced_merit, pres_r, dres_r, gap_r;
+    /* the best iterate that met the coarse stops (CONVERGED_COARSE) */
+    pdg_real x_coarse[PDG_SOCP_NUM_VARIABLES];
+    pdg_real y_coarse[363];
+    pdg_real z_coarse[947];
+    pdg_real s_coarse[947];
+    pdg_real tau_coarse, kappa_coarse, coarse_merit;
+    pdg_real primal_residual_coarse, dual_residual_coarse, duality_gap_coarse;
     pdg_real data_norm;         /* largest |entry| of c, b, h */
-    pdg_real reg;               /* static regularisation in use (raised after a breakdown) */
-    pdg_real refine_floor;      /* refinement stops below this residual (a fraction of mu) */
+    pdg_real shift;             /* kkt_shift in use (raised after a breakdown) */
+    pdg_real correction_floor;  /* iterative refinement stops below this residual (a fraction of mu) */
     /* results and diagnostics */
     pdg_real objective;         /* c'x + d; +INFINITY if infeasible, -INFINITY if unbounded */
-    pdg_real pres, dres, gap;   /* last relative primal / dual residuals and absolute gap */
+    pdg_real primal_residual;   /* last relative primal residual */
+    pdg_real dual_residual;     /* last relative dual residual */
+    pdg_real duality_gap;       /* last absolute duality gap */
     pdg_real mu;                /* last complementarity measure */
     int iterations;
-    int status;
-    int dynamic_reg_count;               /* pivots replaced over the whole solve */
-    int refine_count;                    /* refinement solves over the whole solve */
-    int recoveries;                      /* iterations redone with more regularisation */
+    int status;                          /* enum pdg_socp_status */
+    int pivots_replaced;                 /* pivots replaced over the whole solve */
+    int correction_passes;               /* iterative refinement solves over the whole solve */
+    int recoveries;                      /* iterations redone with a larger shift */
     int backup_valid;
-    int factor_static_only;              /* the last factorisation replaced no pivot */
-    int have_reduced;                    /* xr..kappar hold the reduced-accuracy fallback */
+    int factor_shift_only;               /* the last factorisation replaced no pivot */
+    int have_coarse;                     /* x_coarse..kappa_coarse hold the coarse fallback */
     pdg_real best_merit;        /* progress guard: closest approach to a verdict ... */
     int stall;                           /* ... and iterations since it last halved */
-    int numerical_cause;                 /* 0 none; 1 factorisation, 2 iterate left the cone,
-                                            3 step too short, 4 not-a-number residuals,
-                                            5 params == NULL, 6 no progress (no verdict came
-                                            twice as close in 20 iterations) */
+    int breakdown_cause;                 /* enum pdg_socp_cause */
 } pdg_socp_work;
 
 /* Fill *s with the defaults listed above. */
-void pdg_socp_settings_default(pdg_socp_settings *s);
+void pdg_socp_config_init(pdg_socp_config *s);
 
-/* Solve at parameter vector params[NPARAM]. s may be NULL (defaults).
+/* Solve at parameter vector params[NUM_PARAMS]. s may be NULL (defaults).
  * Returns (and stores in w->status) an enum pdg_socp_status value.
- * On SOLVED, w->x is the primal solution in the cone program's variable order
+ * On CONVERGED, w->x is the primal solution in the cone program's variable order
  * and w->objective = c'x + d; w->y, w->z, w->s are the dual and slack vectors. */
 int pdg_socp_solve(pdg_socp_work *w, const pdg_real *params,
-                            const pdg_socp_settings *s);
+                            const pdg_socp_config *s);
 
 #endif /* PDG_SOCP_H */

@@ -12,41 +12,41 @@
 static int map_status(int code)
 {
     switch (code) {
-    case PDG_SOCP_SOLVED: return 0;
-    /* Optimal to the reduced tolerances (solver settings tol_*_reduced),
+    case PDG_SOCP_CONVERGED: return 0;
+    /* Optimal to the coarse stops (solver settings *_stop_coarse),
      * as the reference accepts a looser Clarabel tolerance when the tight
      * one stalls (codegen/reference.py). */
-    case PDG_SOCP_SOLVED_REDUCED: return 0;
-    case PDG_SOCP_INFEASIBLE: return 1;
-    case PDG_SOCP_MAX_ITER: return 2;
+    case PDG_SOCP_CONVERGED_COARSE: return 0;
+    case PDG_SOCP_INFEASIBLE_CERTIFIED: return 1;
+    case PDG_SOCP_ITERATION_CAP: return 2;
     /* Unbounded cannot happen for a bounded descent problem: trouble. */
-    case PDG_SOCP_UNBOUNDED: return 3;
-    case PDG_SOCP_NUMERICAL: return 3;
+    case PDG_SOCP_UNBOUNDED_CERTIFIED: return 3;
+    case PDG_SOCP_BREAKDOWN: return 3;
     default: return 3;
     }
 }
 
 int pdg_backend_solve(pdg_backend_work *bw, const double *params,
-                             int max_iterations, double *objective, int *iterations)
+                             int iteration_cap, double *objective, int *iterations)
 {
     int i;
     int code;
     for (i = 0; i < PDG_NPARAM; i++) {
         bw->params[i] = (pdg_real)params[i];
     }
-    pdg_socp_settings_default(&bw->settings);
-    bw->settings.max_iter = max_iterations;
-    code = pdg_socp_solve(&bw->socp, bw->params, &bw->settings);
+    pdg_socp_config_init(&bw->config);
+    bw->config.iteration_cap = iteration_cap;
+    code = pdg_socp_solve(&bw->socp, bw->params, &bw->config);
     *iterations = bw->socp.iterations;
-    if (code == PDG_SOCP_NUMERICAL && bw->socp.numerical_cause != PDG_SOCP_CAUSE_NO_PROGRESS) {
-        /* One retry with ten times the static regularisation: near the
+    if (code == PDG_SOCP_BREAKDOWN && bw->socp.breakdown_cause != PDG_SOCP_CAUSE_NO_PROGRESS) {
+        /* One retry with ten times the static shift (kkt_shift): near the
          * optimum the factorisation can fail on a last-bit change of the
-         * data (seen at N = 50 with pres stuck at 3e-8); a different
-         * regularisation path then converges. Bounded: two solves at most.
+         * data (seen at N = 50 with the primal residual stuck at 3e-8); a
+         * different shift path then converges. Bounded: two solves at most.
          * Not after the progress guard (a problem at the edge of
          * feasibility, where the retry drifted just the same). */
-        bw->settings.static_reg = bw->settings.static_reg * (pdg_real)10;
-        code = pdg_socp_solve(&bw->socp, bw->params, &bw->settings);
+        bw->config.kkt_shift = bw->config.kkt_shift * (pdg_real)10;
+        code = pdg_socp_solve(&bw->socp, bw->params, &bw->config);
         *iterations += bw->socp.iterations;
     }
     *objective = (double)bw->socp.objective;

@@ -7,8 +7,8 @@
  * flight when asked (grid, then golden section), calls the solver, and
  * converts the answer back to SI units with an honest status.
  *
- * This file mirrors codegen/problem.py (parameter_values) and
- * codegen/tofsearch.py (search) of pdgc 0.1.0 line for line; the two
+ * This file mirrors codegen/model/problem.py (parameter_values) and
+ * codegen/model/tofsearch.py (search) of pdgc 0.1.0 line for line; the two
  * are checked against each other by `pdgc check`.
  * Generated; do not edit. NOT FLIGHT-QUALIFIED: see README.md.
  */
@@ -26,7 +26,7 @@ static const double MASS_UNIT_KG = 1900.0;
 static const double SPEED_UNIT_MPS = 121.50373613488946;
 static const double ACCEL_UNIT_MPS2 = 7.381578947368421;
 
-/* Vehicle constants, scaled (see codegen/problem.py, Constants). */
+/* Vehicle constants, scaled (see codegen/model/problem.py, Constants). */
 static const double THRUST_LOWER = 0.29411764705882354;
 static const double THRUST_UPPER = 1.0;
 static const double MASS_FLOW = 0.05386927377136476;
@@ -40,7 +40,7 @@ static const double THRUST_LOWER_N = 4125.0;
 static const double THRUST_UPPER_N = 14025.0;
 static const double MASS_FLOW_PER_N = 0.00044335487520779493;
 
-/* Time-of-flight search (codegen/tofsearch.py). */
+/* Time-of-flight search (codegen/model/tofsearch.py). */
 #define GRID_POINTS 9
 #define GRID_REFINEMENTS 3
 #define GRID_MAX 65
@@ -67,9 +67,9 @@ static const double RETRY_SHIFT = 0.125;
 #define P_C_LO 363
 #define P_MISS_MAX 413
 
-void pdg_settings_default(pdg_settings *settings)
+void pdg_guidance_config_init(pdg_guidance_config *settings)
 {
-    settings->max_iterations = 100;
+    settings->iterations_per_solve_max = 100;
     settings->tof_tolerance_s = 0.05;
 }
 
@@ -96,7 +96,7 @@ static int finite_vec(const double *v, int n)
     return 1;
 }
 
-static int input_ok(const pdg_input *in, const pdg_settings *s)
+static int input_ok(const pdg_input *in, const pdg_guidance_config *s)
 {
     if (!finite_vec(in->position_m, 3) || !finite_vec(in->velocity_mps, 3) ||
         !finite_vec(in->target_m, 3) || !isfinite(in->mass_kg) ||
@@ -109,7 +109,8 @@ static int input_ok(const pdg_input *in, const pdg_settings *s)
     if (in->time_of_flight_s < 0.0) {
         return 0;
     }
-    if (s->max_iterations < 1 || s->max_iterations > 200) {
+    if (s->iterations_per_solve_max < 1
+        || s->iterations_per_solve_max > 200) {
         return 0;
     }
     if (!isfinite(s->tof_tolerance_s) || !(s->tof_tolerance_s > 0.0)) {
@@ -171,15 +172,15 @@ static void compute_params(const pdg_input *in, double tof_s, double *p)
  * when proven infeasible, NAN when it failed (iteration limit, numerical
  * trouble: unknown), and keeps the best answer so far in the workspace. */
 static double solve_at(pdg_workspace *w, const pdg_input *in, double tof_s,
-                       const pdg_settings *s)
+                       const pdg_guidance_config *s)
 {
     double objective = 0.0;
     int iterations = 0;
     int status;
     double cost;
     compute_params(in, tof_s, w->params);
-    status = pdg_backend_solve(&w->backend, w->params, s->max_iterations, &objective,
-                                      &iterations);
+    status = pdg_backend_solve(&w->backend, w->params, s->iterations_per_solve_max,
+                                      &objective, &iterations);
     w->solves += 1;
     w->iterations_total += iterations;
     if (iterations > w->iterations_max) {
@@ -210,7 +211,7 @@ static double solve_at(pdg_workspace *w, const pdg_input *in, double tof_s,
  * retried once at a time shifted by RETRY_SHIFT * tolerance when it failed,
  * while the search's RETRY_BUDGET lasts; NAN when still failed (unknown). */
 static double probe(pdg_workspace *w, const pdg_input *in, double tof_s,
-                    double t_lo, double t_hi, int *retries, const pdg_settings *s)
+                    double t_lo, double t_hi, int *retries, const pdg_guidance_config *s)
 {
     double value = solve_at(w, in, tof_s, s);
     const double shift = RETRY_SHIFT * s->tof_tolerance_s;
@@ -235,7 +236,7 @@ static double rank(double value)
  * at most GRID_MAX + 2 + GOLDEN_MAX_STEPS probes and RETRY_BUDGET retries,
  * 111 solves. Scratch lives in the workspace, not on the stack. */
 static void search_tof(pdg_workspace *w, const pdg_input *in, double t_lo,
-                       double t_hi, const pdg_settings *s)
+                       double t_hi, const pdg_guidance_config *s)
 {
     double *times = w->search_t;
     double *costs = w->search_c;
@@ -382,17 +383,17 @@ static void clear_plan(pdg_plan *plan, double tof)
 }
 
 pdg_status pdg_plan_descent(pdg_workspace *work,
-    const pdg_input *input, const pdg_settings *settings,
+    const pdg_input *input, const pdg_guidance_config *settings,
     pdg_plan *plan)
 {
-    pdg_settings defaults;
-    const pdg_settings *s = settings;
+    pdg_guidance_config defaults;
+    const pdg_guidance_config *s = settings;
     pdg_status status;
     if (work == NULL || input == NULL || plan == NULL) {
         return PDG_BAD_INPUT;
     }
     if (s == NULL) {
-        pdg_settings_default(&defaults);
+        pdg_guidance_config_init(&defaults);
         s = &defaults;
     }
     if (!input_ok(input, s)) {
