@@ -11,6 +11,8 @@ The C is built once per configuration (module-scoped fixtures) with gcc
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 import scipy.sparse as sp
@@ -544,3 +546,30 @@ def test_constant_program_without_parameters_compiles_strictly(tmp_path_factory)
     res = solver.solve(np.zeros(0))
     assert ref_status == "Solved" and res["status"] == CONVERGED
     assert rel_err(res["objective"], ref_obj) <= OBJ_TOL
+
+
+def test_settings_sweep_caches_the_reference_and_counts_failures(tmp_path, monkeypatch, capsys):
+    """The sweep behind the defaults (codegen.backends.native.sweep), small:
+    Clarabel's answers are cached after the first run and reused by the
+    second; at the defaults no case misses the reference's verdict, and an
+    iteration cap of 1 leaves every case without one."""
+    from codegen.backends.native import sweep
+    monkeypatch.setenv("PDGC_CACHE", str(tmp_path / "cache"))
+    monkeypatch.setitem(sweep.CANDIDATES["double"], "iteration_cap", [1, 100])
+    out = tmp_path / "s.json"
+    args = ["--horizon", "6", "--cases", "12", "--seed", "3", "--only", "iteration_cap",
+            "--json", str(out)]
+    assert sweep.main(args) == 0
+    cached = sorted((tmp_path / "cache" / "sweep").glob("reference-*.json"))
+    assert len(cached) == 1
+    first = json.loads(out.read_text())
+    stamp = cached[0].stat().st_mtime_ns
+    assert sweep.main(args) == 0
+    assert cached[0].stat().st_mtime_ns == stamp           # not recomputed
+    assert json.loads(out.read_text()) == first
+    compared = sum(v for k, v in first["reference"].items() if k in sweep.VERDICT)
+    assert first["defaults"]["failures"] == 0 and compared >= 10
+    cap1, cap100 = first["sweeps"]["iteration_cap"]
+    assert cap1["value"] == 1 and cap1["failures"] == compared
+    assert cap100["failures"] == 0
+    assert "| `iteration_cap` | 1 |" in sweep.condensed([out])
