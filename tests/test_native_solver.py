@@ -549,11 +549,11 @@ def test_constant_program_without_parameters_compiles_strictly(tmp_path_factory)
 
 
 def test_settings_sweep_caches_the_reference_and_counts_failures(tmp_path, monkeypatch, capsys):
-    """The sweep behind the defaults (codegen.backends.native.sweep), small:
+    """The sweep behind the defaults (bench.settings_sweep), small:
     Clarabel's answers are cached after the first run and reused by the
     second; at the defaults no case misses the reference's verdict, and an
     iteration cap of 1 leaves every case without one."""
-    from codegen.backends.native import sweep
+    from bench import settings_sweep as sweep
     monkeypatch.setenv("PDGC_CACHE", str(tmp_path / "cache"))
     monkeypatch.setitem(sweep.CANDIDATES["double"], "iteration_cap", [1, 100])
     out = tmp_path / "s.json"

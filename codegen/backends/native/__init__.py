@@ -103,7 +103,7 @@ SETTINGS = (
 _INT_SETTINGS = tuple(name for name, ctype, _ in SETTINGS if ctype == "int")
 
 #: Settings defaults by precision (keys: SETTINGS). Each has its reason
-#: beside it: a measurement by ``python -m codegen.backends.native.sweep``
+#: beside it: a measurement by ``python -m bench.settings_sweep``
 #: (1000 states of pdgc check's draw at fixed times of flight, Clarabel at
 #: 1e-9 as the reference; figures as N = 50 seed 7 / N = 50 seed 11 /
 #: N = 20 seed 7; all tables in DEVELOPERS.md, "Where the solver core's

@@ -1,9 +1,9 @@
 """Settings sweep of the native solver core: the measurement behind its defaults.
 
-    .venv/bin/python -m codegen.backends.native.sweep [--horizon 50] [--cases 1000] [--seed 7]
+    .venv/bin/python -m bench.settings_sweep [--horizon 50] [--cases 1000] [--seed 7]
         [--precision double] [--only kkt_shift,boundary_step_share] [--json FILE]
         [--edge-states K]
-    .venv/bin/python -m codegen.backends.native.sweep --condense A.json B.json ...
+    .venv/bin/python -m bench.settings_sweep --condense A.json B.json ...
 
 Generates the demo vehicle's solver core once (its compiled-in defaults), and
 solves a fixed set of dispersed states with run-time settings (the
@@ -14,7 +14,7 @@ States: ``pdgc check``'s draw (codegen.verify.check.draw_cases: 70 % inside the
 envelope, 20 % on its faces, 10 % beyond it) at the given seed, every case at a
 fixed time of flight over the lower 40 % of its bracket (so that many are too
 short to be feasible). Reference: Clarabel on the same cone program at the
-reference's tolerances (codegen.reference.CLARABEL_TIGHT, 1e-9); its answers
+reference's tolerances (codegen.model.canonical.CLARABEL_TIGHT, 1e-9); its answers
 are computed once and cached (under ``PDGC_CACHE``, default ~/.cache/pdgc,
 keyed by the program's data, the states and Clarabel's version), so a sweep
 does not re-run the reference. Cases where Clarabel itself is inexact
@@ -55,10 +55,9 @@ from codegen.backends.native import (BREAKDOWN, CAUSE_NO_PROGRESS, CONVERGED, CO
 from codegen.backends.native.cbuild import NativeSolver, compile_shared
 from codegen.backends.native.measure import DEMO, clarabel_reference
 from codegen.fsutil import write_atomic
-from codegen.model.canonical import extract, flat_parameters
+from codegen.model.canonical import CLARABEL_TIGHT, extract, flat_parameters
 from codegen.model.problem import DescentProblem
 from codegen.model.vehicle import load_vehicle
-from codegen.reference import CLARABEL_TIGHT
 from codegen.verify.check import draw_cases
 
 VERDICT = {"Solved": CONVERGED, "PrimalInfeasible": INFEASIBLE_CERTIFIED,
