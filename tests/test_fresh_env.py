@@ -80,10 +80,10 @@ def test_demo_tree_regenerates_byte_for_byte_in_a_fresh_venv(tmp_path):
 
     out = tmp_path / "demo"
     man = run([vpy, "-c", "import json, sys; m = json.load(open(sys.argv[1])); "
-               "print(m['horizon'], m['backend'], m['prefix'], m['precision'])",
+               "print(m['horizon'], m['backend'], m['c_name'], m['precision'])",
                DEMO_TREE / "manifest.json"], env=env).stdout.split()
     run([venv / "bin" / "pdgc", "generate", src / DEMO_VEHICLE.relative_to(ROOT),
-         "--horizon", man[0], "--backend", man[1], "--prefix", man[2], "--precision", man[3],
+         "--horizon", man[0], "--backend", man[1], "--c-name", man[2], "--precision", man[3],
          "--out", out], env=env, cwd=tmp_path, timeout=600)
 
     fresh, committed = tree_files(out), tree_files(DEMO_TREE)
