@@ -142,7 +142,7 @@ def extract(dp: DescentProblem) -> ConeProgram:
     # Any valid parameter values will do: DPP canonicalisation is symbolic.
     dp.set_parameters(dp.values(dp.vehicle.envelope.position_max_m,
                                 dp.vehicle.envelope.velocity_min_mps,
-                                dp.vehicle.mass_wet_kg, 60.0, (0.0, 0.0, 0.0), 1.0))
+                                dp.vehicle.mass_wet_kg, 60.0, (0.0, 0.0, 0.0), "merit"))
     data, _, _ = dp.problem.get_problem_data(cp.CLARABEL)
     pp = data[cp.settings.PARAM_PROB]
     n = int(pp.x.size)

@@ -14,10 +14,16 @@ INFEASIBLE = "infeasible"
 ITERATION_LIMIT = "iteration_limit"
 NUMERICAL_TROUBLE = "numerical_trouble"
 BAD_INPUT = "bad_input"
-#: The target was out of reach; the answer is the least-miss landing, then
-#: least fuel at that miss (two-stage, Blackmore et al. 2010).
+#: The target was out of reach; the answer is the plan of least terminal
+#: error, then least fuel at that error (two-stage, Blackmore et al. 2010),
+#: with its predicted terminal error.
 LEAST_MISS = "least_miss"
-STATUSES = (OPTIMAL, INFEASIBLE, ITERATION_LIMIT, NUMERICAL_TROUBLE, BAD_INPUT, LEAST_MISS)
+#: A solve converged, but its plan breaks a real (non-convex) constraint
+#: beyond tolerance (codegen/model/verdict.py); the plan and the violation
+#: are returned so that the caller sees them, and it must not be flown.
+LIMITS_VIOLATED = "limits_violated"
+STATUSES = (OPTIMAL, INFEASIBLE, ITERATION_LIMIT, NUMERICAL_TROUBLE, BAD_INPUT, LEAST_MISS,
+            LIMITS_VIOLATED)
 SOLVED = (OPTIMAL, LEAST_MISS)
 
 
@@ -53,10 +59,45 @@ class Trajectory:
     solves: int = 0
     solve_time_s: float = 0.0
     message: str = ""
+    #: The problem mode of the solve that gave the plan (problem.MODES), and
+    #: the throttle limit it was made for (fraction of thrust_max_n).
+    plan_mode: str = ""
+    throttle_limit: float = math.nan
+    target_m: np.ndarray = field(default_factory=lambda: np.zeros(3))
+    velocity_target_mps: np.ndarray = field(default_factory=lambda: np.zeros(3))
+    #: Predicted terminal error of the plan: r_N - target, v_N - v_target (SI),
+    #: and its weighted norm (velocity by the touchdown speed limits, position
+    #: by touchdown.error_position_scale_m: 1 = one speed limit).
+    terminal_position_error_m: np.ndarray = field(default_factory=lambda: np.full(3, math.nan))
+    terminal_velocity_error_mps: np.ndarray = field(default_factory=lambda: np.full(3, math.nan))
+    terminal_error: float = math.nan
+    #: Violations of the real constraints (codegen/model/verdict.py, Verdict.as_dict).
+    verdict: dict = field(default_factory=dict)
+    verdict_text: str = ""
 
     @property
     def solved(self) -> bool:
         return self.status in SOLVED
+
+    @property
+    def terminal_miss_m(self) -> float:
+        """Horizontal distance of the plan's last node from the target."""
+        return float(np.hypot(*self.terminal_position_error_m[:2]))
+
+    @property
+    def terminal_speed_error_mps(self) -> float:
+        return float(np.linalg.norm(self.terminal_velocity_error_mps))
+
+    def set_terminal_error(self, touchdown) -> None:
+        """Terminal error from the plan's last node, weighted by ``touchdown``
+        (a vehicle's Touchdown) as in problem.terminal_error_weights."""
+        dr = np.asarray(self.position_m[-1], float) - np.asarray(self.target_m, float)
+        dv = np.asarray(self.velocity_mps[-1], float) - np.asarray(self.velocity_target_mps, float)
+        self.terminal_position_error_m, self.terminal_velocity_error_mps = dr, dv
+        w = np.array([1.0 / touchdown.error_position_scale_m] * 3 + [1.0 / touchdown.speed_horizontal_max_mps] * 2
+                     + [1.0 / touchdown.speed_vertical_max_mps])
+        self.terminal_error = float(np.linalg.norm(w * np.concatenate([dr, dv])))
+        self.landing_miss_m = self.terminal_miss_m
 
     @property
     def tightness_gap(self) -> float:
@@ -71,6 +112,10 @@ class Trajectory:
     def to_dict(self) -> dict:
         def arr(a):
             return np.asarray(a, float).tolist()
+
+        def vec(a):
+            a = np.asarray(a, float)
+            return a.tolist() if np.all(np.isfinite(a)) else None
 
         def num(x):
             return None if x is None or not math.isfinite(x) else float(x)
@@ -90,10 +135,18 @@ class Trajectory:
             "solve_time_s": self.solve_time_s,
             "tightness_gap": num(self.tightness_gap),
             "message": self.message,
+            "plan_mode": self.plan_mode,
+            "throttle_limit": num(self.throttle_limit),
+            "terminal_position_error_m": vec(self.terminal_position_error_m),
+            "terminal_velocity_error_mps": vec(self.terminal_velocity_error_mps),
+            "terminal_error": num(self.terminal_error),
+            "verdict": self.verdict,
             "t_s": arr(self.t_s),
             "position_m": arr(self.position_m),
             "velocity_mps": arr(self.velocity_mps),
             "mass_kg": arr(self.mass_kg),
+            "accel_mps2": arr(self.accel_mps2),
+            "accel_slack_mps2": arr(self.accel_slack_mps2),
             "thrust_n": arr(self.thrust_n),
             "throttle": arr(self.throttle),
         }

@@ -41,6 +41,25 @@ VEHICLE_KEYS = {
     "gravity_mps2": (True, "magnitude of the constant gravity, acting along -up"),
 }
 
+#: Touchdown requirements (the optional [touchdown] table). Defaults are common
+#: practice for a legged lander of the demo's size, not a requirement of any
+#: program: set your program's own. They weight the terminal error of a plan
+#: that cannot meet the target exactly (an error of 1 = at one limit), and
+#: `pdgc simulate` judges landings by them.
+TOUCHDOWN_KEYS = {
+    "miss_max_m": (False, "largest horizontal distance from the target at touchdown (default 5)"),
+    "speed_vertical_max_mps": (False, "largest downward speed at touchdown (default 2)"),
+    "speed_horizontal_max_mps": (False, "largest horizontal speed at touchdown (default 1)"),
+    "error_position_scale_m": (False, "position error that weighs as much as one speed limit "
+                                      "in a plan that cannot meet the target (default 100)"),
+}
+#: error_position_scale_m: a best-reachable plan trades position against
+#: speed at touchdown with this exchange rate; 100 m per speed limit prefers a
+#: soft landing off the target to a hard one on it (common practice: the
+#: vehicle survives the first, not the second).
+TOUCHDOWN_DEFAULTS = {"miss_max_m": 5.0, "speed_vertical_max_mps": 2.0,
+                      "speed_horizontal_max_mps": 1.0, "error_position_scale_m": 100.0}
+
 ENVELOPE_KEYS = {
     "position_min_m": (True, "lowest initial position [x, y, up]"),
     "position_max_m": (True, "highest initial position [x, y, up]"),
@@ -64,6 +83,16 @@ class Envelope:
 
 
 @dataclass(frozen=True)
+class Touchdown:
+    """Touchdown requirements: limits on miss and speed at ground contact."""
+
+    miss_max_m: float = TOUCHDOWN_DEFAULTS["miss_max_m"]
+    speed_vertical_max_mps: float = TOUCHDOWN_DEFAULTS["speed_vertical_max_mps"]
+    speed_horizontal_max_mps: float = TOUCHDOWN_DEFAULTS["speed_horizontal_max_mps"]
+    error_position_scale_m: float = TOUCHDOWN_DEFAULTS["error_position_scale_m"]
+
+
+@dataclass(frozen=True)
 class Vehicle:
     """A validated vehicle. All values SI; derived bounds as properties."""
 
@@ -80,6 +109,7 @@ class Vehicle:
     speed_max_mps: float
     gravity_mps2: float
     envelope: Envelope
+    touchdown: Touchdown = Touchdown()
     source_sha256: str = ""
     warnings: tuple = field(default=(), compare=False)
 
@@ -104,6 +134,7 @@ class Vehicle:
     def as_dict(self) -> dict:
         out = {k: getattr(self, k) for k in VEHICLE_KEYS}
         out["envelope"] = {k: getattr(self.envelope, k) for k in ENVELOPE_KEYS}
+        out["touchdown"] = {k: getattr(self.touchdown, k) for k in TOUCHDOWN_KEYS}
         return out
 
 
@@ -126,7 +157,11 @@ def parse_vehicle(data: dict, source_sha256: str = "") -> Vehicle:
     """Validate a parsed TOML document and return a :class:`Vehicle`."""
     top = dict(data)
     env = top.pop("envelope", None)
+    td = top.pop("touchdown", {})
     _check_keys(top, VEHICLE_KEYS, "")
+    if not isinstance(td, dict):
+        raise InputError("touchdown", td, "must be a table")
+    _check_keys(td, TOUCHDOWN_KEYS, "touchdown.")
     if env is None:
         raise InputError("envelope", None, "missing required table [envelope] (box of initial states)")
     if not isinstance(env, dict):
@@ -179,6 +214,12 @@ def parse_vehicle(data: dict, source_sha256: str = "") -> Vehicle:
         raise InputError("envelope.mass_min_kg", e["mass_min_kg"],
                          f"must be <= envelope.mass_max_kg = {e['mass_max_kg']!r}")
 
+    touchdown = {}
+    for k, default in TOUCHDOWN_DEFAULTS.items():
+        touchdown[k] = _number("touchdown." + k, td[k]) if k in td else default
+        if not touchdown[k] > 0.0:
+            raise InputError("touchdown." + k, touchdown[k], "must be > 0")
+
     warnings = []
     cant = math.cos(math.radians(v["engine_cant_deg"]))
     hover_n = v["mass_dry_kg"] * v["gravity_mps2"]
@@ -188,7 +229,8 @@ def parse_vehicle(data: dict, source_sha256: str = "") -> Vehicle:
             f"thrust_max_n = {v['thrust_max_n']!r}: net thrust at throttle_max "
             f"({upper_n:.6g} N) cannot hover the dry mass ({hover_n:.6g} N): "
             "no soft landing is possible")
-    return Vehicle(name=name, envelope=Envelope(**e), source_sha256=source_sha256,
+    return Vehicle(name=name, envelope=Envelope(**e), touchdown=Touchdown(**touchdown),
+                   source_sha256=source_sha256,
                    warnings=tuple(warnings), **v)
 
 
