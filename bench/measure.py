@@ -37,7 +37,7 @@ def rel_error(x, ref) -> float:
 
 def reference_fixed(ref: ReferenceSolver, inst: Instance) -> dict:
     tr = ref.solve(*inst.args(), fallback=False)
-    stats = ref.problem("fuel").problem.solver_stats
+    stats = ref.problem().problem.solver_stats
     core = float(stats.solve_time) if stats is not None and stats.solve_time is not None else math.nan
     return {"status": tr.status, "objective": tr.objective, "iterations": tr.iterations,
             "wall_s": tr.solve_time_s, "core_s": core}

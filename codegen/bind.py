@@ -28,9 +28,14 @@ from codegen.emit import verify_tree
 from codegen.errors import InputError
 from codegen.model.trajectory import STATUSES, Trajectory
 from codegen.model.vehicle import load_vehicle
+from codegen.model.verdict import CHECKS
 
-_STATUS_NAMES = ("optimal", "infeasible", "iteration_limit", "numerical_trouble", "bad_input")
+#: The C enum {prefix}_status, in order (templates/guidance.h.j2).
+_STATUS_NAMES = ("optimal", "infeasible", "iteration_limit", "numerical_trouble", "bad_input",
+                 "least_miss", "limits_violated")
 assert all(s in STATUSES for s in _STATUS_NAMES)
+#: The C enum {prefix}_mode, in order.
+_MODE_NAMES = ("target", "merit", "least_error", "fuel_at_error")
 
 
 def cache_root() -> Path:
@@ -40,18 +45,27 @@ def cache_root() -> Path:
 def cdef_text(prefix: str, n: int) -> str:
     """The part of {prefix}_guidance.h that Python needs (sizes filled in)."""
     P = prefix.upper()
+    nc = len(CHECKS)
     return f"""
 typedef enum {{ {P}_OPTIMAL = 0, {P}_INFEASIBLE = 1, {P}_ITERATION_LIMIT = 2,
-               {P}_NUMERICAL_TROUBLE = 3, {P}_BAD_INPUT = 4 }} {prefix}_status;
+               {P}_NUMERICAL_TROUBLE = 3, {P}_BAD_INPUT = 4, {P}_LEAST_MISS = 5,
+               {P}_LIMITS_VIOLATED = 6 }} {prefix}_status;
+typedef enum {{ {P}_MODE_TARGET = 0, {P}_MODE_MERIT = 1, {P}_MODE_LEAST_ERROR = 2,
+               {P}_MODE_FUEL_AT_ERROR = 3 }} {prefix}_mode;
 typedef struct {{
     double position_m[3]; double velocity_mps[3]; double mass_kg;
-    double time_of_flight_s; double target_m[3];
+    double time_of_flight_s; double target_m[3]; double velocity_target_mps[3];
+    double throttle_max;
 }} {prefix}_input;
-typedef struct {{ int iterations_per_solve_max; double tof_tolerance_s; }} {prefix}_guidance_config;
+typedef struct {{ int iterations_per_solve_max; double tof_tolerance_s; int iterations_per_call_max;
+    double reserve_throttle_max; int reserve_steps; int allow_terminal_error; }} {prefix}_guidance_config;
 typedef struct {{
     {prefix}_status status;
     double time_of_flight_s; double fuel_kg; double landing_miss_m; double objective;
-    int iterations; int iterations_max; int iterations_total; int solves;
+    int iterations; int iterations_max; int iterations_total; int solves; int budget_exhausted;
+    {prefix}_mode mode; double throttle_limit;
+    double terminal_position_error_m[3]; double terminal_velocity_error_mps[3];
+    double terminal_error; double violation[{nc}]; int worst_check;
     double t_s[{n + 1}]; double position_m[{n + 1}][3]; double velocity_mps[{n + 1}][3];
     double mass_kg[{n + 1}]; double thrust_n[{n}][3]; double accel_mps2[{n}][3];
     double accel_slack_mps2[{n}];
@@ -149,26 +163,40 @@ class GeneratedSolver:
         self._settings = self.ffi.new(f"{p}_guidance_config *")
         getattr(self.lib, f"{p}_guidance_config_init")(self._settings)
         self.default_iterations_per_solve_max = int(self._settings.iterations_per_solve_max)
+        self._default_reserve_steps = int(self._settings.reserve_steps)
 
-    def settings(self, iterations_per_solve_max=None, tof_tolerance_s=None) -> None:
+    def settings(self, iterations_per_solve_max=None, tof_tolerance_s=None,
+                 iterations_per_call_max=None) -> None:
         if iterations_per_solve_max is not None:
             self._settings.iterations_per_solve_max = int(iterations_per_solve_max)
         if tof_tolerance_s is not None:
             self._settings.tof_tolerance_s = float(tof_tolerance_s)
+        if iterations_per_call_max is not None:
+            self._settings.iterations_per_call_max = int(iterations_per_call_max)
 
     def solve(self, position_m, velocity_mps, mass_kg, time_of_flight_s=None,
-              target_m=(0.0, 0.0, 0.0)) -> Trajectory:
-        inp = self._input
+              target_m=(0.0, 0.0, 0.0), fallback: bool = True,
+              velocity_target_mps=(0.0, 0.0, 0.0), throttle_max=None,
+              reserve_throttle_max=None, reserve_steps=None) -> Trajectory:
+        """As ReferenceSolver.solve; the C checks the inputs (BAD_INPUT)."""
+        inp, st = self._input, self._settings
         for i in range(3):
             inp.position_m[i] = float(position_m[i])
             inp.velocity_mps[i] = float(velocity_mps[i])
             inp.target_m[i] = float(target_m[i])
+            inp.velocity_target_mps[i] = float(velocity_target_mps[i])
         inp.mass_kg = float(mass_kg)
         inp.time_of_flight_s = 0.0 if time_of_flight_s is None else float(time_of_flight_s)
         if time_of_flight_s is not None and inp.time_of_flight_s == 0.0:
             inp.time_of_flight_s = -1.0   # 0 means "search" in C; a given 0 s is bad input
+        inp.throttle_max = 0.0 if throttle_max is None else float(throttle_max)
+        if throttle_max is not None and inp.throttle_max == 0.0:
+            inp.throttle_max = -1.0       # 0 means "the vehicle's"; a given 0 is bad input
+        st.reserve_throttle_max = 0.0 if reserve_throttle_max is None else float(reserve_throttle_max)
+        st.reserve_steps = self._default_reserve_steps if reserve_steps is None else int(reserve_steps)
+        st.allow_terminal_error = 1 if fallback else 0
         t0 = time.perf_counter()
-        code = int(self._plan_fn(self._work, inp, self._settings, self._plan))
+        code = int(self._plan_fn(self._work, inp, st, self._plan))
         elapsed = time.perf_counter() - t0
         status = _STATUS_NAMES[code] if 0 <= code < len(_STATUS_NAMES) else "numerical_trouble"
         n = self.horizon
@@ -177,14 +205,18 @@ class GeneratedSolver:
                               message="input refused by the generated solver (see its header)")
         pl = self._plan
         buf = self.ffi.buffer
+
+        def arr(field, shape):
+            return np.frombuffer(buf(field), dtype=np.float64).reshape(shape).copy()
+
         traj = Trajectory(status=status, solver=self.name, horizon=n,
                           time_of_flight_s=float(pl.time_of_flight_s),
                           iterations=int(pl.iterations), iterations_total=int(pl.iterations_total),
                           iterations_max=int(pl.iterations_max), solves=int(pl.solves),
                           solve_time_s=elapsed)
-        if status == "optimal":
-            def arr(field, shape):
-                return np.frombuffer(buf(field), dtype=np.float64).reshape(shape).copy()
+        if pl.budget_exhausted:
+            traj.message = "stopped by the call's iteration budget (iterations_per_call_max)"
+        if status in ("optimal", "least_miss", "limits_violated"):
             traj.t_s = arr(pl.t_s, (n + 1,))
             traj.position_m = arr(pl.position_m, (n + 1, 3))
             traj.velocity_mps = arr(pl.velocity_mps, (n + 1, 3))
@@ -195,8 +227,23 @@ class GeneratedSolver:
             full = self.vehicle.thrust_max_n * math.cos(math.radians(self.vehicle.engine_cant_deg))
             traj.throttle = np.linalg.norm(traj.thrust_n, axis=1) / full
             traj.fuel_kg = float(pl.fuel_kg)
-            traj.landing_miss_m = float(pl.landing_miss_m)
             traj.objective = float(pl.objective)
+            traj.plan_mode = _MODE_NAMES[int(pl.mode)]
+            traj.throttle_limit = float(pl.throttle_limit)
+            traj.target_m = np.asarray(target_m, float)
+            traj.velocity_target_mps = np.asarray(velocity_target_mps, float)
+            traj.terminal_position_error_m = arr(pl.terminal_position_error_m, (3,))
+            traj.terminal_velocity_error_mps = arr(pl.terminal_velocity_error_mps, (3,))
+            traj.terminal_error = float(pl.terminal_error)
+            traj.landing_miss_m = float(pl.landing_miss_m)
+            viol = arr(pl.violation, (len(CHECKS),))
+            worst = int(pl.worst_check)
+            traj.verdict = {"flyable": status != "limits_violated",
+                            "worst": CHECKS[worst][0] if 0 <= worst < len(CHECKS) else "",
+                            "violations": {name: float(x) for (name, _, _), x in zip(CHECKS, viol)}}
+            if status == "limits_violated":
+                traj.message = (f"plan breaks a real constraint: {traj.verdict['worst']} "
+                                f"{viol[worst]:.3g}")
         return traj
 
 

@@ -25,7 +25,7 @@ from pathlib import Path
 import jinja2
 
 from codegen import __version__, versions
-from codegen.model import tofsearch
+from codegen.model import policy, problem, tofsearch, verdict
 from codegen.backends import DEFAULT_BACKEND, get_backend
 from codegen.backends.native import ITERATIONS_HARD_LIMIT
 from codegen.model.canonical import extract
@@ -81,6 +81,14 @@ def environment() -> jinja2.Environment:
     return env
 
 
+def _error_weights_si(vehicle) -> list:
+    """Weights of the terminal error per component of (r_N - target,
+    v_N - v_target): problem.terminal_error_weights in SI."""
+    td = vehicle.touchdown
+    return [1.0 / td.error_position_scale_m] * 3 + [1.0 / td.speed_horizontal_max_mps] * 2 + \
+        [1.0 / td.speed_vertical_max_mps]
+
+
 def _sha256(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
@@ -104,7 +112,7 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
 
     t0 = time.perf_counter()
     say(f"building the descent problem (N = {horizon})")
-    dp = DescentProblem(vehicle, horizon, "fuel")
+    dp = DescentProblem(vehicle, horizon)
     prog = extract(dp)
     env = environment()
     n = horizon
@@ -113,12 +121,25 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         "vehicle": vehicle, "vehicle_sha256": vehicle.source_sha256, "N": n,
         "backend": backend, "precision": precision, "s": dp.scaling, "k": dp.constants,
         "mass_floor_fraction": MASS_FLOOR_FRACTION,
-        "grid_points": tofsearch.GRID_POINTS, "grid_refinements": tofsearch.GRID_REFINEMENTS,
-        "grid_max": tofsearch.grid_max(),
-        "golden_max_steps": tofsearch.GOLDEN_MAX_STEPS, "inv_phi": tofsearch.INV_PHI,
+        "grid_points": tofsearch.GRID_POINTS, "brent_max_steps": tofsearch.BRENT_MAX_STEPS,
+        "golden_step": tofsearch.GOLDEN_STEP,
         "retry_budget": tofsearch.RETRY_BUDGET, "retry_shift": tofsearch.RETRY_SHIFT,
         "tof_tolerance": tofsearch.TOLERANCE_S, "layout": dp.parameter_layout,
         "nparam": sum(size for _, _, size in dp.parameter_layout),
+        "cos_cant": math.cos(math.radians(vehicle.engine_cant_deg)),
+        "full_throttle_n": vehicle.thrust_max_n * math.cos(math.radians(vehicle.engine_cant_deg)),
+        "error_weights_si": [c_literal(w) for w in _error_weights_si(vehicle)],
+        "merit_error_weight": problem.MERIT_ERROR_WEIGHT,
+        "least_error_fuel_weight": problem.LEAST_ERROR_FUEL_WEIGHT,
+        "error_bound_free": problem.ERROR_BOUND_FREE,
+        "error_slack_rel": policy.ERROR_SLACK_REL, "error_slack_abs": policy.ERROR_SLACK_ABS,
+        "merit_meets_target": policy.MERIT_MEETS_TARGET,
+        "reserve_steps_default": policy.RESERVE_STEPS,
+        "reserve_steps_max": policy.RESERVE_STEPS_MAX,
+        "probe_tolerance": policy.PROBE_TOLERANCE if precision == "double" else None,
+        "checks": verdict.CHECKS, "tolerances": verdict.TOLERANCES[precision],
+        "tan_glide_slope": math.tan(math.radians(vehicle.glide_slope_deg)),
+        "deg_per_rad": 180.0 / math.pi,
         "default_iterations_per_solve": DEFAULT_ITERATIONS_PER_SOLVE,
         "iterations_per_solve_limit": ITERATIONS_HARD_LIMIT,
     }
@@ -133,10 +154,11 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
 
     env_ = vehicle.envelope
     mid = lambda lo, hi: [c_literal((a + b) / 2.0) for a, b in zip(lo, hi)]  # noqa: E731
-    doubles = (ctx["nparam"] + 3 * (n + 1) * 2 + (n + 1) + 3 * n + n + 2
-               + 4 * ctx["grid_max"])
-    ws_bytes = out.backend_bytes + 8 * doubles + 4 * 7
-    plan_bytes = 4 + 8 * 4 + 4 * 4 + 8 * ((n + 1) * 8 + n * 7)
+    solution = 8 * (3 * (n + 1) * 2 + (n + 1) + 3 * n + n + 4) + 4 * 2
+    ws_bytes = (out.backend_bytes + 8 * ctx["nparam"] + 4 * solution + 4 * 9
+                + 8 * (2 * ctx["grid_points"] + 3))
+    plan_bytes = (4 + 8 * 4 + 4 * 6 + 8 * (2 + 7 + len(verdict.CHECKS)) + 4
+                  + 8 * ((n + 1) * 8 + n * 7))
     ctx.update({
         "mid_position": mid(env_.position_min_m, env_.position_max_m),
         "mid_velocity": mid(env_.velocity_min_mps, env_.velocity_max_mps),
@@ -144,7 +166,11 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         "print_every": max(1, n // 10),
         "backend_header": out.backend_header, "backend_fields": out.backend_fields,
         "workspace_bytes": ws_bytes, "plan_bytes": plan_bytes,
-        "max_solves": tofsearch.max_evaluations(),
+        "max_probes": tofsearch.max_evaluations(),
+        "final_solves": policy.FINAL_SOLVES_SEARCH,
+        "max_solves_search": tofsearch.max_evaluations() + policy.FINAL_SOLVES_SEARCH,
+        "max_solves_fixed_expr": f"{policy.FINAL_SOLVES_FIXED} + reserve_steps",
+        "max_solves_fixed": policy.FINAL_SOLVES_FIXED + policy.RESERVE_STEPS_MAX,
         "sizes": {"n": int(prog.n), "p": int(prog.p), "m": int(prog.m), "nonneg": int(prog.nonneg),
                   "soc": len(prog.soc)},
         "vehicle_rows": [(k, c_literal(getattr(vehicle, k)) if k != "name" else vehicle.name)
@@ -156,7 +182,8 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         "solver_causes": out.info.get("cause_rows", []),
     })
 
-    guidance_sources = [f"src/{prefix}_guidance.c", f"src/{prefix}_backend.c"]
+    guidance_sources = [f"src/{prefix}_guidance.c", f"src/{prefix}_verdict.c",
+                        f"src/{prefix}_backend.c"]
     include_dirs = ["include"] + out.include_dirs
     objects = []
     for src in guidance_sources + out.solver_sources:
@@ -170,7 +197,9 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
     files = dict(out.files)
     files[f"include/{prefix}_guidance.h"] = render("guidance.h.j2", ctx).encode()
     files[f"include/{prefix}_backend.h"] = render("backend.h.j2", ctx).encode()
+    files[f"include/{prefix}_verdict.h"] = render("verdict.h.j2", ctx).encode()
     files[f"src/{prefix}_guidance.c"] = render("guidance.c.j2", ctx).encode()
+    files[f"src/{prefix}_verdict.c"] = render("verdict.c.j2", ctx).encode()
     files[f"src/{prefix}_backend.c"] = out.adapter_c.encode()
     files[f"app/{prefix}_plan_once.c"] = render("plan_once.c.j2", ctx).encode()
     files["Makefile"] = render("Makefile.j2", build_ctx).encode()
@@ -189,7 +218,9 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
                     "sha256": vehicle.source_sha256},
         "options": {"iterations_per_solve_max_default": DEFAULT_ITERATIONS_PER_SOLVE,
                     "iterations_per_solve_max_limit": ITERATIONS_HARD_LIMIT,
-                    "tof_tolerance_s": tofsearch.TOLERANCE_S},
+                    "tof_tolerance_s": tofsearch.TOLERANCE_S,
+                    "solves_per_call_max_search": ctx["max_solves_search"],
+                    "solves_per_call_max_fixed": ctx["max_solves_fixed"]},
         "build": {"guidance_sources": guidance_sources, "solver_sources": out.solver_sources,
                   "include_dirs": include_dirs, "defines": out.defines,
                   "solver_strict": out.solver_strict},

@@ -85,19 +85,28 @@ def test_agrees_with_reference_fixed_and_searched(ecos_solver):
     ref = ReferenceSolver(ecos_solver.vehicle, N_ECOS)
     for tof in (38.0, 50.0, None):
         g = ecos_solver.solve(*DEMO_STATE, time_of_flight_s=tof)
-        r = ref.solve(*DEMO_STATE, time_of_flight_s=tof, fallback=False)
+        r = ref.solve(*DEMO_STATE, time_of_flight_s=tof)
         assert g.status == r.status == "optimal"
-        assert g.time_of_flight_s == pytest.approx(r.time_of_flight_s, abs=1e-9)
+        # Brent's parabolic steps use the probes' costs, which two solvers
+        # give alike only to their tolerances: the searched times agree to
+        # far below the search's tolerance, not bit for bit.
+        assert g.time_of_flight_s == pytest.approx(r.time_of_flight_s, abs=1e-4)
         assert g.objective == pytest.approx(r.objective, rel=1e-6)
         assert np.max(np.abs(g.position_m - r.position_m)) < 0.05
         assert g.tightness_gap < 1e-5
 
 
 def test_infeasible_is_never_optimal(ecos_solver):
-    g = ecos_solver.solve(*DEMO_STATE, time_of_flight_s=6.0)
-    assert g.status == "infeasible"
-    assert ReferenceSolver(ecos_solver.vehicle, N_ECOS).solve(
-        *DEMO_STATE, time_of_flight_s=6.0).status == "infeasible"
+    # 6 s is too short to stop from 64 m/s (the rocket-equation bound of
+    # problem.reach_bracket): the target cannot be met. With no terminal
+    # error allowed both say infeasible without a solve; allowed, neither
+    # says the target is met.
+    ref = ReferenceSolver(ecos_solver.vehicle, N_ECOS)
+    g = ecos_solver.solve(*DEMO_STATE, time_of_flight_s=6.0, fallback=False)
+    r = ref.solve(*DEMO_STATE, time_of_flight_s=6.0, fallback=False)
+    assert g.status == r.status == "infeasible" and g.solves == r.solves == 0
+    assert ecos_solver.solve(*DEMO_STATE, time_of_flight_s=6.0).status != "optimal"
+    assert ref.solve(*DEMO_STATE, time_of_flight_s=6.0).status != "optimal"
 
 
 @pytest.mark.parametrize("pos,vel,mass,tof", [

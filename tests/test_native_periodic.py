@@ -25,7 +25,7 @@ from test_native_solver import FAMILIES, RandomFamily
 
 
 def _periodic(prog):
-    stages = kkt_stages(prog, variable_stages(prog), "max")
+    stages = kkt_stages(prog, variable_stages(prog), "min")
     sym = analyse(prog.n, prog.p, prog.m, prog.A.indptr, prog.A.indices, prog.G.indptr,
                   prog.G.indices, prog.nonneg, prog.soc, "auto", stages)
     return stages, sym

@@ -18,7 +18,9 @@ int main(void)
         { -50.0, 0.0, -40.0 },
         1875.0,
         0.0, /* search the time of flight */
-        { 0.0, 0.0, 0.0 }
+        { 0.0, 0.0, 0.0 },
+        { 0.0, 0.0, 0.0 }, /* at rest on the target */
+        0.0 /* the vehicle's throttle_max */
     };
     pdg_guidance_config settings;
     pdg_status status;
@@ -26,15 +28,16 @@ int main(void)
     pdg_guidance_config_init(&settings);
     status = pdg_plan_descent(&work, &input, &settings, &plan);
     printf("status %s\n", pdg_status_name(status));
-    if (status != PDG_OPTIMAL) {
+    if (status != PDG_OPTIMAL && status != PDG_LEAST_MISS) {
         return 1;
     }
     printf("time of flight %.4f s, fuel %.4f kg, %d solves, %d iterations (max %d per solve)\n",
            plan.time_of_flight_s, plan.fuel_kg, plan.solves, plan.iterations_total,
            plan.iterations_max);
     for (k = 0; k < PDG_HORIZON; k += 5) {
-        printf("t %8.3f s  thrust [%10.3f %10.3f %10.3f] N\n", plan.t_s[k], plan.thrust_n[k][0],
-               plan.thrust_n[k][1], plan.thrust_n[k][2]);
+        printf("t %8.3f s  accel [%8.4f %8.4f %8.4f] m/s^2  thrust at start [%10.3f %10.3f %10.3f] N\n",
+               plan.t_s[k], plan.accel_mps2[k][0], plan.accel_mps2[k][1], plan.accel_mps2[k][2],
+               plan.thrust_n[k][0], plan.thrust_n[k][1], plan.thrust_n[k][2]);
     }
     return 0;
 }

@@ -10,26 +10,29 @@
 #include "pdg_socp.h"
 
 /** Length of the flat parameter vector. */
-#define PDG_NPARAM 414
+#define PDG_NPARAM 420
 
 /** Backend state owned by the caller (inside pdg_workspace). */
 typedef struct {
     pdg_socp_work socp;
     pdg_socp_config config;
-    pdg_real params[414];
+    pdg_real params[420];
 } pdg_backend_work;
 
 /**
  * Solve for the parameters `params`, with at most `iteration_cap`
- * iterations. Writes the objective and the iteration count; returns a
- * pdg_status value (0 optimal, 1 infeasible, 2 iteration limit,
- * 3 numerical trouble) mapped from the solver's own codes.
+ * iterations in all (a retry included). `probe` = 1 asks for the search's
+ * loose tolerance, where the backend has one. Writes the objective and the
+ * iteration count; returns a pdg_status value (0 optimal,
+ * 1 infeasible, 2 iteration limit, 3 numerical trouble) mapped from the
+ * solver's own codes.
  */
 int pdg_backend_solve(pdg_backend_work *bw, const double *params,
-                             int iteration_cap, double *objective, int *iterations);
+                             int iteration_cap, int probe, double *objective, int *iterations);
 
-/** Copy the scaled solution of the last solve (column-major, as in the problem). */
+/** Copy the scaled solution of the last solve (column-major, as in the
+ * problem), and the terminal error's norm variable. */
 void pdg_backend_solution(const pdg_backend_work *bw, double *r, double *v,
-                                 double *z, double *u, double *sigma);
+                                 double *z, double *u, double *sigma, double *error_norm);
 
 #endif

@@ -6,28 +6,67 @@
  * Do not edit: regenerate. NOT FLIGHT-QUALIFIED: see README.md, section Caution.
  *
  * One call, pdg_plan_descent(), turns the vehicle's state into a
- * least-fuel descent plan to the target: thrust vectors (N), positions,
- * velocities, masses, time of flight, fuel, iterations and a status. Units are
- * SI throughout; the frame is the landing-site frame with the third axis up.
+ * descent plan the engine can fly: accelerations and thrusts per interval,
+ * positions, velocities and masses per node, time of flight, fuel, iterations
+ * and a status. Units are SI throughout; the frame is the landing-site frame
+ * with the third axis up.
+ *
+ * What the plan means: the vehicle commands the acceleration accel_mps2[k]
+ * from t_s[k] to t_s[k+1], as a thrust equal to its current mass times it
+ * (T(t) = m(t) u_k); thrust_n[k] is that thrust at t_s[k], with the plan's
+ * mass mass_kg[k]. Flown so, the vehicle follows the plan's nodes exactly
+ * (zero-order hold on the acceleration, exact for the double integrator);
+ * holding thrust_n[k] as a force instead misses by metres.
+ *
+ * Every plan is checked against the real (non-convex) constraints before it
+ * is returned (pdg_verdict.h): thrust within the engine's range over
+ * each whole interval, tightness of the relaxation, pointing, glide slope,
+ * speed, dynamics, dry mass, and the target when it is said to be met.
  * All state lives in the caller-owned pdg_workspace: two workspaces
  * plan independently (the code is reentrant); no heap is used.
+ *
+ * Bounds of one call (retries included):
+ *   solves      at most 107 with a searched time of flight
+ *               (102 probes of the search, then at most 5 solves at the
+ *               time it found), at most 6 + reserve_steps with a fixed one
+ *               (reserve_steps <= 12: at most 18);
+ *   iterations  at most iterations_per_solve_max per solve (a solve's retry after a
+ *               breakdown shares its cap), and at most iterations_per_call_max
+ *               in all when that setting is > 0: then the search's probes stop
+ *               while less than one full solve's iterations are left, so that
+ *               the final solve can still run.
  */
 #ifndef PDG_GUIDANCE_H
 #define PDG_GUIDANCE_H
 
 #include "pdg_backend.h"
+#include "pdg_verdict.h"
 
 /** Number of intervals of the plan (nodes: N + 1). */
 #define PDG_HORIZON 50
+/** Worst-case number of solves of one call (searched time of flight). */
+#define PDG_MAX_SOLVES 107
 
 /** Outcome of a plan. */
 typedef enum {
-    PDG_OPTIMAL = 0,           /**< plan found, optimal to solver tolerance */
+    PDG_OPTIMAL = 0,           /**< the target met: least fuel, flyable (checked) */
     PDG_INFEASIBLE = 1,        /**< no plan exists (solver certificate) */
-    PDG_ITERATION_LIMIT = 2,   /**< iteration cap reached: no trustworthy plan */
-    PDG_NUMERICAL_TROUBLE = 3, /**< solver failed numerically: no trustworthy plan */
-    PDG_BAD_INPUT = 4          /**< input refused before any solve; output untouched */
+    PDG_ITERATION_LIMIT = 2,   /**< iteration cap or call budget reached: no plan */
+    PDG_NUMERICAL_TROUBLE = 3, /**< the solver failed numerically: no plan */
+    PDG_BAD_INPUT = 4,         /**< input refused before any solve; output untouched */
+    PDG_LEAST_MISS = 5,        /**< target out of reach: the flyable plan that ends
+                                             closest to it, with its predicted terminal error */
+    PDG_LIMITS_VIOLATED = 6    /**< a solve converged but its plan breaks a real
+                                             constraint (see violation[], worst_check): do not fly */
 } pdg_status;
+
+/** Which problem gave the plan. */
+typedef enum {
+    PDG_MODE_TARGET = 0,        /**< least fuel, the target met */
+    PDG_MODE_MERIT = 1,         /**< (search probes only) */
+    PDG_MODE_LEAST_ERROR = 2,   /**< least terminal error */
+    PDG_MODE_FUEL_AT_ERROR = 3  /**< least fuel with the least error held */
+} pdg_mode;
 
 /** Run-time inputs. */
 typedef struct {
@@ -35,13 +74,23 @@ typedef struct {
     double velocity_mps[3]; /**< initial velocity */
     double mass_kg;         /**< current mass, in (1450.0, 1900.0] kg */
     double time_of_flight_s;/**< > 0: fixed; exactly 0: searched; anything else: BAD_INPUT */
-    double target_m[3];     /**< landing target */
+    double target_m[3];     /**< landing target (the plan's last node) */
+    double velocity_target_mps[3]; /**< velocity at the plan's last node (a moving pad's; often 0) */
+    double throttle_max;    /**< planning limit, fraction of thrust_max_n, in
+                                 [throttle_min, 1]; 0: the vehicle's (0.85) */
 } pdg_input;
 
 /** Settings; fill with pdg_guidance_config_init() then change what you need. */
 typedef struct {
-    int iterations_per_solve_max; /**< per solve, 1..200 (default 100) */
-    double tof_tolerance_s;       /**< time-of-flight search stops when the bracket is shorter (default 0.05) */
+    int iterations_per_solve_max;       /**< per solve, retries included, 1..200 (default 100) */
+    double tof_tolerance_s;   /**< time-of-flight search stops when the bracket is shorter (default 0.05) */
+    int iterations_per_call_max; /**< all solves of one call; 0: no budget but the bounds above (default 0) */
+    double reserve_throttle_max; /**< fixed time of flight: when the target is out of reach at
+                                      throttle_max, the highest limit the call may use instead
+                                      (the engine's reserve), in [throttle_max, 1]; 0: none (default 0) */
+    int reserve_steps;        /**< bisection steps for the lowest limit that meets the target, 0..12 (default 4) */
+    int allow_terminal_error; /**< 1: when the target cannot be met, the best reachable plan
+                                   (PDG_LEAST_MISS); 0: report INFEASIBLE (default 1) */
 } pdg_guidance_config;
 
 /** The plan. Arrays by node k = 0..N (or interval k = 0..N-1). */
@@ -52,55 +101,89 @@ typedef struct {
     double landing_miss_m;        /**< horizontal distance of the last node from the target */
     double objective;             /**< scaled objective of the answer (for comparisons) */
     int iterations;               /**< iterations of the solve that gave the answer */
-    int iterations_max;           /**< most iterations of any solve of the search */
-    int iterations_total;         /**< all iterations of the search */
+    int iterations_max;           /**< most iterations of any solve of the call */
+    int iterations_total;         /**< all iterations of the call */
     int solves;                   /**< number of solves */
+    int budget_exhausted;         /**< 1 when iterations_per_call_max stopped the call short */
+    pdg_mode mode;       /**< problem that gave the plan */
+    double throttle_limit;        /**< throttle limit the plan was made for (fraction of thrust_max_n) */
+    double terminal_position_error_m[3];  /**< last node minus target */
+    double terminal_velocity_error_mps[3];/**< last velocity minus velocity_target_mps */
+    double terminal_error;        /**< their weighted norm (velocity by the touchdown speed limits, position by error_position_scale_m) */
+    double violation[PDG_NUM_CHECKS]; /**< real-constraint checks of the plan (pdg_verdict.h) */
+    int worst_check;              /**< check furthest past its tolerance, or -1 */
     double t_s[51];
     double position_m[51][3];
     double velocity_mps[51][3];
     double mass_kg[51];
-    double thrust_n[50][3];        /**< thrust vector, held on interval k */
-    double accel_mps2[50][3];      /**< thrust acceleration u = T/m on interval k */
+    double thrust_n[50][3];        /**< thrust at the start of interval k: mass_kg[k] * accel_mps2[k] */
+    double accel_mps2[50][3];      /**< thrust acceleration u = T/m, held on interval k */
     double accel_slack_mps2[50];   /**< sigma >= |u|; equal at a lossless optimum */
 } pdg_plan;
 
-/** Caller-owned workspace (about 448116 bytes; see README.md). */
+/** One converged solve's scaled solution. */
+typedef struct {
+    double r[153];
+    double v[153];
+    double z[51];
+    double u[150];
+    double sigma[50];
+    double error_norm;
+    double objective;
+    double tof;
+    double limit;
+    int iterations;
+    int mode;
+} pdg_solution;
+
+/** Caller-owned workspace (about 463804 bytes; see README.md). */
 typedef struct {
     pdg_backend_work backend;
     double params[PDG_NPARAM];
-    double best_r[153];
-    double best_v[153];
-    double best_z[51];
-    double best_u[150];
-    double best_sigma[50];
-    double best_cost;
-    double best_tof;
-    int best_iterations;
-    int have_best;
+    pdg_solution current;     /* the solve just made */
+    pdg_solution first;       /* the first converged final solve (for LIMITS_VIOLATED) */
+    pdg_solution kept;        /* the reserve's best plan, or the least-error plan */
+    int have_first;
     int iterations_total;
     int iterations_max;
     int solves;
+    int retries;
+    int budget_exhausted;
     int last_status;
     int last_iterations;
-    double search_t[65];   /* time-of-flight search scratch */
-    double search_c[65];
-    double mid_t[65];
-    double mid_c[65];
+    double search_t[9];   /* time-of-flight search scratch */
+    double search_c[9];
+    double best_t;
+    double best_cost;
+    double best_error;
 } pdg_workspace;
 
-/** Fill *settings with the defaults. */
+/** Default settings. */
 void pdg_guidance_config_init(pdg_guidance_config *settings);
 
 /**
- * Plan a least-fuel descent from `input` and write it to `plan`.
+ * Plan a descent from `input` and write it to `plan`.
  *
  * Inputs are validated first (finite numbers, mass in (dry, wet], time of
- * flight > 0 or exactly 0 for a search, settings in range); on failure the
- * function returns PDG_BAD_INPUT and leaves `plan` untouched. When
- * the time of flight is 0 it is searched over the bracket of Acikmese &
- * Ploen (2007) by a grid then golden section; each trial is one solve, and
- * a failed one is retried once at a nearby time (at most 4 retries).
- * Returns plan->status. `settings` may be NULL for the defaults.
+ * flight > 0 or exactly 0 for a search, throttle limits and settings in
+ * range); on failure the function returns PDG_BAD_INPUT and leaves
+ * `plan` untouched.
+ *
+ * Fixed time of flight (a re-plan): least fuel with the target met at the
+ * planning limit, unless the rocket equation rules it out; then, with a
+ * reserve, the target at reserve_throttle_max and, if met, the lowest limit
+ * found by reserve_steps bisection steps; then, if allowed, the least
+ * terminal error and the least fuel with that error held (slack 0.1 %, then
+ * 3 % and 30 % when a plan is not flyable).
+ * Searched time of flight (time_of_flight_s = 0): over the bracket of
+ * Acikmese & Ploen (2007), a grid of probes that meet the target, then
+ * Brent's minimiser (Brent 1973); if no grid time meets it, a grid of merit
+ * probes (fuel plus terminal error) and Brent's minimiser; then the solves
+ * above at the time found. A failed probe is retried once at a nearby time
+ * (at most 4 retries per call).
+ * The answer is the first plan that converged and passed the checks of
+ * pdg_verdict.h. Returns plan->status. `settings` may be NULL for
+ * the defaults.
  */
 pdg_status pdg_plan_descent(pdg_workspace *work,
     const pdg_input *input, const pdg_guidance_config *settings,

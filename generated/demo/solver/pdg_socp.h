@@ -2,7 +2,7 @@
  * primal-dual interior-point solver for one fixed second-order cone program
  *
  *     minimise    c'x + d
- *     subject to  A x = b,   G x + s = h,   s in K = R+^251 x SOC(q1) x ... (199 SOCs)
+ *     subject to  A x = b,   G x + s = h,   s in K = R+^252 x SOC(q1) x ... (200 SOCs)
  *
  * whose data (c, d, A, b, G, h) are affine in a parameter vector. Method:
  * homogeneous self-dual embedding, Nesterov-Todd scaling, Mehrotra
@@ -31,27 +31,27 @@
 
 typedef double pdg_real;
 
-#define PDG_SOCP_NUM_PARAMS 414
-#define PDG_SOCP_NUM_VARIABLES 607
+#define PDG_SOCP_NUM_PARAMS 420
+#define PDG_SOCP_NUM_VARIABLES 614
 #define PDG_SOCP_NUM_EQUALITIES 363
-#define PDG_SOCP_NUM_CONE_ROWS 947
-#define PDG_SOCP_NUM_NONNEG_ROWS 251
-#define PDG_SOCP_NUM_SECOND_ORDER_CONES 199
-#define PDG_SOCP_KKT_DIM 1917
-#define PDG_SOCP_KKT_NNZ 5172
-#define PDG_SOCP_L_NNZ 8497
-#define PDG_SOCP_DATA_LEN 4279
+#define PDG_SOCP_NUM_CONE_ROWS 955
+#define PDG_SOCP_NUM_NONNEG_ROWS 252
+#define PDG_SOCP_NUM_SECOND_ORDER_CONES 200
+#define PDG_SOCP_KKT_DIM 1932
+#define PDG_SOCP_KKT_NNZ 5222
+#define PDG_SOCP_L_NNZ 8631
+#define PDG_SOCP_DATA_LEN 4308
 #define PDG_SOCP_ITERATIONS_HARD_LIMIT 200
 
 /* Offsets of the problem data inside pdg_socp_work.data:
  * c (NUM_VARIABLES), d (1), b (NUM_EQUALITIES), h (NUM_CONE_ROWS), values of A
  * (CSC), values of G (CSC). */
 #define PDG_SOCP_OFF_C 0
-#define PDG_SOCP_OFF_D 607
-#define PDG_SOCP_OFF_B 608
-#define PDG_SOCP_OFF_H 971
-#define PDG_SOCP_OFF_A 1918
-#define PDG_SOCP_OFF_G 3131
+#define PDG_SOCP_OFF_D 614
+#define PDG_SOCP_OFF_B 615
+#define PDG_SOCP_OFF_H 978
+#define PDG_SOCP_OFF_A 1933
+#define PDG_SOCP_OFF_G 3152
 
 /* Statuses of a solve (w->status, and the return value of pdg_socp_solve). */
 enum pdg_socp_status {
@@ -139,21 +139,21 @@ typedef struct {
     /* solution (after a solve) or iterate (during one) */
     pdg_real x[PDG_SOCP_NUM_VARIABLES];
     pdg_real y[363];       /* multipliers of A x = b */
-    pdg_real z[947];       /* multipliers of G x + s = h (in K) */
-    pdg_real s[947];       /* slacks (in K) */
+    pdg_real z[955];       /* multipliers of G x + s = h (in K) */
+    pdg_real s[955];       /* slacks (in K) */
     pdg_real tau, kappa;
     /* Nesterov-Todd scaling: w (nonneg rows) / normalised w (SOC rows), eta per SOC */
-    pdg_real lambda[947];
-    pdg_real ntw[947];
-    pdg_real eta[199];
-    pdg_real rw[199];     /* 1 + wbar0 per cone, as a denominator (see DEN in the .c) */
+    pdg_real lambda[955];
+    pdg_real ntw[955];
+    pdg_real eta[200];
+    pdg_real rw[200];     /* 1 + wbar0 per cone, as a denominator (see DEN in the .c) */
     /* per cone, nu^2, nu, nu, u0 + nu of u = s and u = z, nu^2 = u0^2 - |u1|^2, the 1st, 3rd
      * and 4th as denominators (nt_scaling) */
-    pdg_real geo_s[4 * 199];
-    pdg_real geo_z[4 * 199];
+    pdg_real geo_s[4 * 200];
+    pdg_real geo_z[4 * 200];
     /* KKT matrix (permuted upper CSC values) and its LDL' factor */
     pdg_real kkt[PDG_SOCP_KKT_NNZ];
-    pdg_real l_val[8497];   /* L by columns (pattern l_ptr, l_row) */
+    pdg_real l_val[8631];   /* L by columns (pattern l_ptr, l_row) */
     pdg_real pivot_inv[PDG_SOCP_KKT_DIM];   /* 1 / the pivots of D */
     pdg_real scat[PDG_SOCP_KKT_DIM];
     /* right-hand sides, solutions, refinement scratch */
@@ -166,27 +166,27 @@ typedef struct {
     /* residuals and directions */
     pdg_real rx[PDG_SOCP_NUM_VARIABLES];
     pdg_real ry[363];
-    pdg_real rz[947];
+    pdg_real rz[955];
     pdg_real dx[PDG_SOCP_NUM_VARIABLES];
     pdg_real dy[363];
-    pdg_real dz[947];
-    pdg_real ds[947];
-    pdg_real dsa[947];
-    pdg_real dza[947];
-    pdg_real t1[947];
-    pdg_real t2[947];
+    pdg_real dz[955];
+    pdg_real ds[955];
+    pdg_real dsa[955];
+    pdg_real dza[955];
+    pdg_real t1[955];
+    pdg_real t2[955];
     pdg_real dtau, dkappa;
     /* the iterate at the start of the current iteration (for a retry) */
     pdg_real xb[PDG_SOCP_NUM_VARIABLES];
     pdg_real yb[363];
-    pdg_real zb[947];
-    pdg_real sb[947];
+    pdg_real zb[955];
+    pdg_real sb[955];
     pdg_real taub, kappab;
     /* the best iterate that met the coarse stops (CONVERGED_COARSE) */
     pdg_real x_coarse[PDG_SOCP_NUM_VARIABLES];
     pdg_real y_coarse[363];
-    pdg_real z_coarse[947];
-    pdg_real s_coarse[947];
+    pdg_real z_coarse[955];
+    pdg_real s_coarse[955];
     pdg_real tau_coarse, kappa_coarse, coarse_merit;
     pdg_real primal_residual_coarse, dual_residual_coarse, duality_gap_coarse;
     pdg_real data_norm;         /* largest |entry| of c, b, h */

@@ -27,25 +27,37 @@ static int map_status(int code)
 }
 
 int pdg_backend_solve(pdg_backend_work *bw, const double *params,
-                             int iteration_cap, double *objective, int *iterations)
+                             int iteration_cap, int probe, double *objective, int *iterations)
 {
     int i;
     int code;
+    int left;
     for (i = 0; i < PDG_NPARAM; i++) {
         bw->params[i] = (pdg_real)params[i];
     }
     pdg_socp_config_init(&bw->config);
     bw->config.iteration_cap = iteration_cap;
+    if (probe) {
+        /* The search's probes: only their ranking steers it (codegen/reference.py,
+         * PROBE_TOLERANCE); the final solve runs at the full tolerances. */
+        bw->config.residual_stop = (pdg_real)1e-06;
+        bw->config.gap_abs_stop = (pdg_real)1e-06;
+        bw->config.gap_rel_stop = (pdg_real)1e-06;
+    }
     code = pdg_socp_solve(&bw->socp, bw->params, &bw->config);
     *iterations = bw->socp.iterations;
-    if (code == PDG_SOCP_BREAKDOWN && bw->socp.breakdown_cause != PDG_SOCP_CAUSE_NO_PROGRESS) {
+    left = iteration_cap - bw->socp.iterations;
+    if (code == PDG_SOCP_BREAKDOWN && bw->socp.breakdown_cause != PDG_SOCP_CAUSE_NO_PROGRESS
+        && left > 0) {
         /* One retry with ten times the static shift (kkt_shift): near the
          * optimum the factorisation can fail on a last-bit change of the
          * data (seen at N = 50 with the primal residual stuck at 3e-8); a
-         * different shift path then converges. Bounded: two solves at most.
-         * Not after the progress guard (a problem at the edge of
-         * feasibility, where the retry drifted just the same). */
+         * different shift path then converges. It shares the solve's cap:
+         * the two attempts together take at most iteration_cap. Not after
+         * the progress guard (a problem at the edge of feasibility, where
+         * the retry drifted just the same). */
         bw->config.kkt_shift = bw->config.kkt_shift * (pdg_real)10;
+        bw->config.iteration_cap = left;
         code = pdg_socp_solve(&bw->socp, bw->params, &bw->config);
         *iterations += bw->socp.iterations;
     }
@@ -54,20 +66,21 @@ int pdg_backend_solve(pdg_backend_work *bw, const double *params,
 }
 
 void pdg_backend_solution(const pdg_backend_work *bw, double *r, double *v,
-                                 double *z, double *u, double *sigma)
+                                 double *z, double *u, double *sigma, double *error_norm)
 {
     int i;
     for (i = 0; i < 153; i++) {
-        r[i] = (double)bw->socp.x[50 + i];
-        v[i] = (double)bw->socp.x[203 + i];
+        r[i] = (double)bw->socp.x[51 + i];
+        v[i] = (double)bw->socp.x[204 + i];
     }
     for (i = 0; i < 51; i++) {
-        z[i] = (double)bw->socp.x[356 + i];
+        z[i] = (double)bw->socp.x[357 + i];
     }
     for (i = 0; i < 150; i++) {
-        u[i] = (double)bw->socp.x[407 + i];
+        u[i] = (double)bw->socp.x[408 + i];
     }
     for (i = 0; i < 50; i++) {
         sigma[i] = (double)bw->socp.x[0 + i];
     }
+    *error_norm = (double)bw->socp.x[50];
 }
