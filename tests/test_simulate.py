@@ -224,8 +224,10 @@ class _FailingReplans:
         self.inner = inner
         self.vehicle, self.horizon, self.name = inner.vehicle, inner.horizon, "failing-replans"
 
-    def solve(self, position_m, velocity_mps, mass_kg, time_of_flight_s=None, target_m=(0, 0, 0)):
-        traj = self.inner.solve(position_m, velocity_mps, mass_kg, time_of_flight_s, target_m)
+    def solve(self, position_m, velocity_mps, mass_kg, time_of_flight_s=None, target_m=(0, 0, 0),
+              **options):
+        traj = self.inner.solve(position_m, velocity_mps, mass_kg, time_of_flight_s, target_m,
+                                **options)
         if time_of_flight_s is not None:
             traj.status = "numerical_trouble"
         return traj

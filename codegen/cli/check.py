@@ -15,6 +15,10 @@ def register(sub) -> None:
                    help="relative objective tolerance (default by precision)")
     s.add_argument("--search-every", type=int, default=5,
                    help="every K-th case searches the time of flight (default 5)")
+    s.add_argument("--edge-states", type=int, default=0, metavar="K",
+                   help="also sweep fixed times of flight across both edges of the feasible "
+                        "window for K states drawn inside the envelope (codegen.verify.edges); "
+                        "fails on any plan that breaks the real constraints")
     s.add_argument("--json", default=None, metavar="FILE", help="also write the results as JSON")
     s.set_defaults(func=run)
 
@@ -64,8 +68,43 @@ def run(args) -> int:
         print(f"  replay: {replay_line(args.dir, x.case, gen.horizon)}")
     if len(failed) > 20:
         print(f"... and {len(failed) - 20} more failing cases")
+    edge_bad = 0
+    if args.edge_states < 0:
+        print(f"pdgc check: --edge-states = {args.edge_states}: must be >= 0", file=sys.stderr)
+        return 2
+    if args.edge_states:
+        edge_bad = run_edges(args, gen)
     if args.json:
         from codegen.fsutil import write_atomic
         write_atomic(args.json, results_json(r))
-    print("PASS" if not failed else f"FAIL: {len(failed)} of {len(r.results)} cases")
-    return 0 if not failed else 1
+    bad = len(failed) + edge_bad
+    print("PASS" if not bad else f"FAIL: {len(failed)} of {len(r.results)} cases"
+          + (f", {edge_bad} edge-sweep plans that break the constraints" if edge_bad else ""))
+    return 0 if not bad else 1
+
+
+def run_edges(args, gen) -> int:
+    """The edge sweep; returns the number of plans called flyable that are not."""
+    from codegen.reference import ReferenceSolver
+    from codegen.verify.check import draw_cases
+    from codegen.verify.edges import OFFSETS_S, sweep
+
+    drawn = [c for c in draw_cases(gen.vehicle, 4 * args.edge_states + 8, args.seed,
+                                   search_every=0) if c.kind == "inside"][:args.edge_states]
+    states = [(c.position_m, c.velocity_mps, c.mass_kg) for c in drawn]
+    ref = ReferenceSolver(gen.vehicle, gen.horizon)
+    with Progress(len(states), "pdgc check: edge sweep", "states") as bar:
+        res = sweep(gen, ref, states, progress=lambda done: bar.update())
+    e = res.summary()
+    print(f"pdgc check: edge sweep, {e['states']} states, {e['solves']} solves at "
+          f"{min(OFFSETS_S):g} .. {max(OFFSETS_S):g} s from both edges of the feasible window")
+    print_table([
+        ("plans that break the constraints (generated / reference)",
+         f"{e['false_flyable']['generated']} / {e['false_flyable']['reference']}"),
+        ("failures inside the window (generated / reference)",
+         f"{e['failures_inside']['generated']} / {e['failures_inside']['reference']} "
+         f"of {e['inside']}"),
+        ("status disagreements", f"{e['status_disagreements']}"),
+        ("worst iterations of a call (generated)", f"{e['generated_iterations_worst']}"),
+    ])
+    return e["false_flyable"]["generated"]

@@ -80,6 +80,12 @@ def run(args) -> int:
         ("engine", f"{info['engine']}, wall time {info['wall_s']:.1f} s "
                    f"(all sessions of the run: {sum(x['wall_s'] for x in summary['sessions']):.1f} s)"),
         ("statuses", ", ".join(f"{k} {v}" for k, v in g["status_counts"].items())),
+        ("plans that break a real constraint",
+         f"{g['plans_breaking_constraints']} of {g['plans_judged']} judged"),
+        ("solves above the per-solve cap",
+         "-" if g["solves_above_cap"] is None else
+         f"{g['solves_above_cap']} (cap {g['iterations_per_solve_cap']}, "
+         f"call bound {g['iterations_per_call_bound']})"),
         ("iterations in one solve: worst / p99.9",
          f"{pct(g['iterations_max'], 'worst')} / {pct(g['iterations_max'], 'p99.9')}"),
         ("iterations in the search: worst / p99.9",

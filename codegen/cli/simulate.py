@@ -43,6 +43,25 @@ def register(sub) -> None:
     s.add_argument("--state", default=None, help="nominal start X,Y,Z,VX,VY,VZ,MASS "
                    "(default: centre of the vehicle's envelope, its largest mass)")
     s.add_argument("--target", default=None, help="X,Y,Z of the landing target [m]")
+    s.add_argument("--reserve-throttle", type=finite_float("--reserve-throttle"), default=None,
+                   metavar="FRACTION", help="highest throttle a re-plan may use when the target "
+                   "is out of reach at the vehicle's throttle_max (the engine's reserve; "
+                   "default 1, all of it; throttle_max: none)")
+    s.add_argument("--reserve-steps", type=int_at_least("--reserve-steps", 0), default=None,
+                   metavar="K", help="bisection steps for the lowest throttle limit that meets "
+                   "the target (default 4)")
+    s.add_argument("--touchdown-miss", type=finite_float("--touchdown-miss"), default=None,
+                   metavar="M", help="largest horizontal miss of a landing (default: the vehicle "
+                   "file's [touchdown] miss_max_m)")
+    s.add_argument("--touchdown-vertical-speed", type=finite_float("--touchdown-vertical-speed"),
+                   default=None, metavar="MPS", help="largest downward speed of a landing "
+                   "(default: [touchdown] speed_vertical_max_mps)")
+    s.add_argument("--touchdown-horizontal-speed",
+                   type=finite_float("--touchdown-horizontal-speed"), default=None, metavar="MPS",
+                   help="largest horizontal speed of a landing (default: [touchdown] "
+                   "speed_horizontal_max_mps)")
+    s.add_argument("--crash-speed", type=finite_float("--crash-speed"), default=None, metavar="MPS",
+                   help="a touchdown faster than this is a crash (default 5 m/s, common practice)")
     s.add_argument("--quiet", action="store_true", help="no line per run")
     s.set_defaults(func=run)
 
@@ -57,7 +76,12 @@ def run(args) -> int:
     solver = load_guidance_solver(args.dir)
     overrides = dict(rate_hz=args.rate, step_s=args.step, control_rate_hz=args.control_rate,
                      tracking_bandwidth_rad_s=args.tracking_bandwidth, terminal_s=args.terminal_s,
-                     descent_altitude_m=args.descent_altitude, descent_speed_mps=args.descent_speed)
+                     descent_altitude_m=args.descent_altitude, descent_speed_mps=args.descent_speed,
+                     reserve_throttle=args.reserve_throttle, reserve_steps=args.reserve_steps,
+                     miss_max_m=args.touchdown_miss,
+                     speed_vertical_max_mps=args.touchdown_vertical_speed,
+                     speed_horizontal_max_mps=args.touchdown_horizontal_speed,
+                     crash_speed_mps=args.crash_speed)
     if args.state:
         pos, vel, mass = parse_state(args.state)
         overrides.update(position_m=tuple(pos), velocity_mps=tuple(vel), mass_kg=mass)
@@ -79,8 +103,9 @@ def run(args) -> int:
             return
         r = info
         if not args.quiet:
-            if r["status"] == "landed":
-                bar.write(f"run {r['run']:5d}: miss {r['position_error_m']:.3f} m, velocity error "
+            if r["status"] in ("landed", "out_of_limits", "crashed"):
+                tag = "" if r["status"] == "landed" else f" {r['status'].upper()}"
+                bar.write(f"run {r['run']:5d}:{tag} miss {r['position_error_m']:.3f} m, velocity error "
                           f"{r['velocity_error_mps']:.3f} m/s, fuel {r['fuel_kg']:.2f} kg, "
                           f"solves {r['solves']} ({r['failures']} failed), "
                           f"worst solve {r['worst_solve_time_s'] * 1e3:.2f} ms")
@@ -100,16 +125,28 @@ def run(args) -> int:
         return (f"mean {d['mean']:.{digits}g}, 3-sigma {d['three_sigma']:.{digits}g}, "
                 f"worst {d['worst']:.{digits}g} {unit}")
 
+    rate = f"{summary['no_plan_rate']:.2%}"
+    if summary["no_plan_rate_flagged"]:
+        rate += " (HIGH)"
+    causes = ", ".join(f"{k}: {v}" for k, v in sorted(summary["failure_statuses"].items()))
     rows = [
-        ("runs / landed", f"{summary['runs']} / {summary['landed']}"),
+        ("runs / landed / out of limits / crashed",
+         f"{summary['runs']} / {summary['landed']} / {summary['out_of_limits']} / "
+         f"{summary['crashed']}"),
         ("touchdown position error", stat(summary["position_error_m"], "m")),
         ("touchdown velocity error", stat(summary["velocity_error_mps"], "m/s")),
         ("fuel", stat(summary["fuel_kg"], "kg")),
-        ("solves / failures", f"{summary['solves']} / {summary['solve_failures']} "
-                              f"({summary['runs_with_failures']} runs with a failure)"),
+        ("guidance calls / without a flyable plan",
+         f"{summary['solves']} / {summary['solve_failures']} ({rate}"
+         + (f"; {causes}" if causes else "") + ")"),
+        ("best-reachable plans / re-plans on the reserve",
+         f"{summary['best_reachable_plans']} / {summary['reserve_plans']}"),
         ("worst solve time", f"{(summary['worst_solve_time_s'] or 0) * 1e3:.3f} ms (re-plans: "
                              f"{(summary['worst_replan_time_s'] or 0) * 1e3:.3f} ms)"),
         ("report", f"{args.out}/report.html"),
     ]
     print_table(rows)
+    if summary["no_plan_rate_flagged"]:
+        print(f"pdgc: warning: {summary['no_plan_rate']:.2%} of guidance calls returned no "
+              "flyable plan (more than 1 %)", file=sys.stderr)
     return 0

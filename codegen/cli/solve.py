@@ -6,6 +6,7 @@ import sys
 
 from codegen.cli.common import parse_state, parse_vector3, positive_int, print_table
 from codegen.errors import InputError
+from codegen.model.trajectory import LEAST_MISS, LIMITS_VIOLATED
 
 #: The horizon when --horizon is not given.
 DEFAULT_HORIZON = 50
@@ -22,7 +23,10 @@ def register(sub) -> None:
                    help="use the generated solver in this tree instead of the reference")
     s.add_argument("--no-fallback", action="store_true",
                    help="report 'infeasible' when the target is out of reach instead of the "
-                        "two-stage least-miss plan (as generated solvers do)")
+                        "best reachable plan (least terminal error, then least fuel)")
+    s.add_argument("--reserve-throttle", type=float, default=None, metavar="FRACTION",
+                   help="with --tof: the highest throttle the plan may use when the target is "
+                        "out of reach at the vehicle's throttle_max (a re-plan's reserve)")
     s.add_argument("--json", action="store_true", help="print one JSON object")
     s.add_argument("--plot", default=None, metavar="FILE.png")
     s.set_defaults(func=run)
@@ -46,10 +50,14 @@ def run(args) -> int:
         if solver.horizon != horizon and horizon_given:
             raise InputError("--horizon", horizon,
                              f"the generated solver in {args.solver_dir} has horizon {solver.horizon}")
-        traj = solver.solve(pos, vel, mass, args.tof, target)
     else:
         solver = ReferenceSolver(vehicle, horizon)
-        traj = solver.solve(pos, vel, mass, args.tof, target, fallback=not args.no_fallback)
+    traj = solver.solve(pos, vel, mass, args.tof, target, fallback=not args.no_fallback,
+                        reserve_throttle_max=args.reserve_throttle)
+    if traj.status == "bad_input":
+        raise InputError("input", traj.message, "refused by the solver")
+    if traj.status == LEAST_MISS:
+        print(f"pdgc: warning: {traj.message}", file=sys.stderr)
     if args.json:
         print(traj.to_json())
     else:
@@ -69,8 +77,14 @@ def _rows(traj, m) -> list:
     rows = [("status", traj.status)]
     if traj.message:
         rows.append(("message", traj.message))
-    if traj.solved:
+    if traj.solved or traj.status == LIMITS_VIOLATED:
         rows += [
+            ("plan", f"{traj.plan_mode}, throttle limit {traj.throttle_limit:.4g}"),
+            ("terminal error", f"{traj.terminal_error:.3g} weighted "
+                               f"({traj.terminal_miss_m:.3g} m horizontal, "
+                               f"{traj.terminal_speed_error_mps:.3g} m/s)"),
+            ("checks of the real constraints",
+             "all met" if traj.verdict.get("flyable") else f"FAILED: {traj.verdict.get('worst')}"),
             ("time of flight", f"{traj.time_of_flight_s:.4f} s"),
             ("fuel", f"{traj.fuel_kg:.4f} kg"),
             ("landing miss", f"{traj.landing_miss_m:.3g} m"),

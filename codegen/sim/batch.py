@@ -14,7 +14,8 @@ from codegen import __version__
 from codegen.errors import InputError
 from codegen.fsutil import complete_lines, write_atomic
 from codegen.sim.error_model import ErrorModel, check_against_settings
-from codegen.sim.loop import LANDED, NO_CONTACT, NO_INITIAL_PLAN, fly
+from codegen.sim.loop import (CRASHED, LANDED, NO_CONTACT, NO_INITIAL_PLAN, OUT_OF_LIMITS,
+                              TOUCHED_DOWN, fly)
 from codegen.sim.report import write_report
 from codegen.sim.settings import Settings
 from codegen.sim.tree import _tree_identity, load_guidance_solver
@@ -134,27 +135,51 @@ def describe(values) -> dict:
             "mean_plus_three_sigma": float(a.mean()) + 3.0 * std, "worst": float(a.max())}
 
 
+#: A share of guidance calls without a flyable plan above this is flagged in
+#: the console summary and the report (common practice: any is worth a look;
+#: one in a hundred is a design problem).
+NO_PLAN_RATE_FLAG = 0.01
+
+
 def summarise(records) -> dict:
-    landed = [r for r in records if r["status"] == LANDED]
+    """Statistics over the runs that touched down (landed, out of limits or
+    crashed), the count of each run status, and the guidance calls that gave
+    no flyable plan, by cause."""
+    down = [r for r in records if r["status"] in TOUCHED_DOWN]
     statuses = {}
     for r in records:
         for s, c in r.get("failure_statuses", {}).items():
             statuses[s] = statuses.get(s, 0) + c
+    solves = int(sum(r["solves"] for r in records))
+    failures = int(sum(r["failures"] for r in records))
+    rate = failures / solves if solves else 0.0
+    limits = [r.get("throttle_limit_max") for r in records if r.get("throttle_limit_max")]
     return {
         "runs": len(records),
-        "landed": len(landed),
+        "landed": sum(r["status"] == LANDED for r in records),
+        "out_of_limits": sum(r["status"] == OUT_OF_LIMITS for r in records),
+        "crashed": sum(r["status"] == CRASHED for r in records),
         "no_initial_plan": sum(r["status"] == NO_INITIAL_PLAN for r in records),
         "no_contact": sum(r["status"] == NO_CONTACT for r in records),
+        "limits_exceeded": {name: sum(name in r.get("limits_exceeded", []) for r in records)
+                            for name in ("miss", "vertical_speed", "horizontal_speed")},
         "propellant_exhausted": sum(bool(r.get("propellant_exhausted")) for r in records),
-        "position_error_m": describe(r["position_error_m"] for r in landed),
-        "velocity_error_mps": describe(r["velocity_error_mps"] for r in landed),
-        "vertical_speed_mps": describe(r["vertical_speed_mps"] for r in landed),
-        "horizontal_speed_mps": describe(r["horizontal_speed_mps"] for r in landed),
-        "fuel_kg": describe(r["fuel_kg"] for r in landed),
-        "solves": int(sum(r["solves"] for r in records)),
-        "solve_failures": int(sum(r["failures"] for r in records)),
+        "position_error_m": describe(r["position_error_m"] for r in down),
+        "velocity_error_mps": describe(r["velocity_error_mps"] for r in down),
+        "vertical_speed_mps": describe(r["vertical_speed_mps"] for r in down),
+        "horizontal_speed_mps": describe(r["horizontal_speed_mps"] for r in down),
+        "fuel_kg": describe(r["fuel_kg"] for r in down),
+        "solves": solves,
+        "solve_failures": failures,
+        "no_plan_rate": rate,
+        "no_plan_rate_flagged": rate > NO_PLAN_RATE_FLAG,
         "runs_with_failures": int(sum(r["failures"] > 0 for r in records)),
         "failure_statuses": statuses,
+        "best_reachable_plans": int(sum(r.get("best_reachable_plans", 0) for r in records)),
+        "reserve_plans": int(sum(r.get("reserve_plans", 0) for r in records)),
+        "throttle_limit_max": max(limits) if limits else None,
+        "worst_call_iterations": max((r.get("worst_call_iterations", 0) for r in records),
+                                     default=0),
         "worst_solve_time_s": max((r["worst_solve_time_s"] for r in records), default=None),
         "worst_replan_time_s": max((r["worst_replan_time_s"] for r in records), default=None),
     }

@@ -7,17 +7,17 @@ import math
 import numpy as np
 
 from codegen.model.vehicle import Vehicle
-from codegen.sim.loop import LANDED
+from codegen.sim.loop import CRASHED, LANDED, OUT_OF_LIMITS, TOUCHED_DOWN
 
 
-def figures(records, vehicle: Vehicle, target_m) -> list:
+def figures(records, vehicle: Vehicle, target_m, requirements=None) -> list:
     import matplotlib
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
     from codegen.plot import figure_png_base64
 
-    landed = [r for r in records if r["status"] == LANDED]
+    landed = [r for r in records if r["status"] in TOUCHED_DOWN]
     tx, ty = target_m[0], target_m[1]
     figs = []
 
@@ -50,11 +50,24 @@ def figures(records, vehicle: Vehicle, target_m) -> list:
     figs.append(("Trajectory fan", figure_png_base64(fig)))
 
     fig, ax = plt.subplots(1, 2, figsize=(13, 5))
-    if landed:
-        p = np.asarray([r["touchdown_position_m"] for r in landed], float)
-        ax[0].scatter(p[:, 0] - tx, p[:, 1] - ty, s=8, alpha=0.6)
-        v = np.asarray([[r["horizontal_speed_mps"], r["vertical_speed_mps"]] for r in landed], float)
-        ax[1].scatter(v[:, 0], v[:, 1], s=8, alpha=0.6)
+    for status, colour in ((LANDED, "tab:green"), (OUT_OF_LIMITS, "tab:orange"),
+                           (CRASHED, "tab:red")):
+        group = [r for r in landed if r["status"] == status]
+        if not group:
+            continue
+        p = np.asarray([r["touchdown_position_m"] for r in group], float)
+        ax[0].scatter(p[:, 0] - tx, p[:, 1] - ty, s=8, alpha=0.6, color=colour,
+                      label=f"{status} ({len(group)})")
+        v = np.asarray([[r["horizontal_speed_mps"], r["vertical_speed_mps"]] for r in group], float)
+        ax[1].scatter(v[:, 0], v[:, 1], s=8, alpha=0.6, color=colour, label=f"{status} ({len(group)})")
+    if requirements:
+        circle = np.linspace(0.0, 2.0 * math.pi, 200)
+        ax[0].plot(requirements["miss_max_m"] * np.cos(circle),
+                   requirements["miss_max_m"] * np.sin(circle), "k--", lw=0.8,
+                   label=f"miss limit {requirements['miss_max_m']:g} m")
+        h, vv = requirements["speed_horizontal_max_mps"], requirements["speed_vertical_max_mps"]
+        ax[1].plot([0.0, h, h], [vv, vv, 0.0], "k--", lw=0.8, label="speed limits")
+        ax[1].legend()
     ax[0].plot([0], [0], "kx", ms=10, label="target")
     ax[0].set_xlabel("x miss [m]")
     ax[0].set_ylabel("y miss [m]")
@@ -84,7 +97,7 @@ def figures(records, vehicle: Vehicle, target_m) -> list:
         ax.hist(tgo, bins=40, color="tab:red", alpha=0.7)
     ax.set_xlabel("time to go at the failed re-plan [s]")
     ax.set_ylabel("failed re-plans")
-    ax.set_title(f"re-plan failures by time to go ({len(tgo)} in all runs; the last good plan "
-                 "was followed each time)")
-    figs.append(("Re-plan failures", figure_png_base64(fig)))
+    ax.set_title(f"guidance calls without a flyable plan, by time to go ({len(tgo)} in all "
+                 "runs; the last good plan was followed each time)")
+    figs.append(("Calls without a flyable plan", figure_png_base64(fig)))
     return figs

@@ -8,7 +8,7 @@ from dataclasses import asdict
 import numpy as np
 
 from codegen.errors import InputError
-from codegen.model.trajectory import BAD_INPUT
+from codegen.model.trajectory import BAD_INPUT, LEAST_MISS
 from codegen.sim.error_model import ErrorModel
 from codegen.sim.plans import EVENT_EPS_S, _Descent, _Plan
 from codegen.sim.settings import Settings, draw_run
@@ -22,11 +22,17 @@ FREE_FALL_MAX_S = 120.0
 #: acceleration per axis (m/s^2); it only has to cancel small persistent
 #: errors (thrust magnitude, mass estimate, disturbance).
 TRACKING_INTEGRAL_MAX_MPS2 = 0.5
-#: Landed runs; other statuses say why a run has no touchdown.
+#: How a run ended. With ground contact: ``landed`` (within every touchdown
+#: requirement: miss, vertical and horizontal speed), ``out_of_limits``
+#: (outside one, below the crash speed) or ``crashed`` (faster than the crash
+#: speed). Without: no plan to start with, or no contact in time.
 LANDED = "landed"
+OUT_OF_LIMITS = "out_of_limits"
+CRASHED = "crashed"
 NO_INITIAL_PLAN = "no_initial_plan"
 NO_CONTACT = "no_contact"
-RUN_STATUSES = (LANDED, NO_INITIAL_PLAN, NO_CONTACT)
+RUN_STATUSES = (LANDED, OUT_OF_LIMITS, CRASHED, NO_INITIAL_PLAN, NO_CONTACT)
+TOUCHED_DOWN = (LANDED, OUT_OF_LIMITS, CRASHED)
 
 
 def _r(x, nd=6):
@@ -67,7 +73,9 @@ class _Run:
         self.m_lo = vehicle.mass_dry_kg + 1e-6 * (vehicle.mass_wet_kg - vehicle.mass_dry_kg)
         self.stats = {"solves": 0, "failures": 0, "worst_solve_time_s": 0.0,
                       "worst_replan_time_s": 0.0, "failure_statuses": {},
-                      "failure_time_to_go_s": []}
+                      "failure_time_to_go_s": [], "best_reachable_plans": 0,
+                      "reserve_plans": 0, "throttle_limit_max": None,
+                      "worst_call_iterations": 0}
         self.y = [*draw.position_m, *draw.velocity_mps, draw.mass_kg, 0.0]
         self.record = {
             "run": int(index), "seed": int(seed), "status": NO_INITIAL_PLAN,
@@ -91,13 +99,21 @@ class _Run:
         """A plan from the estimate of ``y`` (None when the solve fails)."""
         stats = self.stats
         r, v, m = self.estimate(y)
+        s = self.settings
+        reserve = {}
+        if tof is not None and s.reserve_throttle > self.vehicle.throttle_max:
+            # A re-plan may use the engine's reserve (settings.RESERVE_THROTTLE).
+            reserve = {"reserve_throttle_max": s.reserve_throttle,
+                       "reserve_steps": s.reserve_steps}
         try:
-            traj = self.solver.solve(r, v, m, tof, self.aim)
+            traj = self.solver.solve(r, v, m, tof, self.aim, **reserve)
             status, ok = traj.status, traj.solved
         except InputError:                 # a binding that raises on bad input
             traj, status, ok = None, BAD_INPUT, False
         stats["solves"] += 1
         if traj is not None:
+            stats["worst_call_iterations"] = max(stats["worst_call_iterations"],
+                                                 int(traj.iterations_total))
             stats["worst_solve_time_s"] = max(stats["worst_solve_time_s"], traj.solve_time_s)
             if tof is not None:
                 stats["worst_replan_time_s"] = max(stats["worst_replan_time_s"], traj.solve_time_s)
@@ -107,6 +123,14 @@ class _Run:
             if tof is not None:
                 stats["failure_time_to_go_s"].append(round(float(tof), 4))
             return None
+        if traj.status == LEAST_MISS:
+            stats["best_reachable_plans"] += 1
+        limit = traj.throttle_limit
+        if math.isfinite(limit):
+            if limit > self.vehicle.throttle_max:
+                stats["reserve_plans"] += 1
+            prev = stats["throttle_limit_max"]
+            stats["throttle_limit_max"] = limit if prev is None else max(prev, limit)
         return traj
 
 
@@ -290,8 +314,22 @@ class _Flight:
         guided_end = self.guided_end
         record = self.run.record
         record.update(self.run.stats)
+        req = s.requirements(vehicle)
+        miss = math.hypot(y[0] - target[0], y[1] - target[1])
+        v_down, v_side = -y[5], math.hypot(y[3], y[4])
+        exceeded = [name for name, value, limit in (
+            ("miss", miss, req["miss_max_m"]),
+            ("vertical_speed", v_down, req["speed_vertical_max_mps"]),
+            ("horizontal_speed", v_side, req["speed_horizontal_max_mps"])) if value > limit]
+        if not self.contact:
+            status = NO_CONTACT
+        elif math.sqrt(y[3] ** 2 + y[4] ** 2 + y[5] ** 2) > req["crash_speed_mps"]:
+            status = CRASHED
+        else:
+            status = OUT_OF_LIMITS if exceeded else LANDED
         record.update({
-            "status": LANDED if self.contact else NO_CONTACT,
+            "status": status,
+            "limits_exceeded": exceeded if self.contact else [],
             "planned_time_of_flight_s": _r(self.t_end),
             "planned_fuel_kg": _r(self.first.fuel_kg),
             "touchdown_time_s": _r(self.t),

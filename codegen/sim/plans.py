@@ -19,12 +19,11 @@ class _Plan:
     def __init__(self, traj, t0_s: float):
         self.traj = traj
         self.t0_s = t0_s
-        self.n = len(traj.thrust_n)
+        self.n = len(traj.accel_mps2)
         self.dt_s = traj.time_of_flight_s / self.n
-        thrust = np.asarray(traj.thrust_n, float)
-        mass = np.asarray(traj.mass_kg, float)[: self.n]
-        # u = T/m on each interval (the plan's control, see the module docstring).
-        self.accel = [tuple(float(x) for x in row) for row in thrust / mass[:, None]]
+        # The plan's control: the acceleration u_k held on interval k (the
+        # thrust is the current mass times it; codegen/model/problem.py).
+        self.accel = [tuple(float(x) for x in row) for row in np.asarray(traj.accel_mps2, float)]
 
     def command(self, t_s: float):
         k = int(math.floor((t_s - self.t0_s) / self.dt_s))

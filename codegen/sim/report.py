@@ -26,13 +26,31 @@ def write_report(path, records, summary: dict, vehicle: Vehicle, errors: ErrorMo
         rows.append([label, d["n"], d["mean"], d["std"], d["three_sigma"],
                      d["mean_plus_three_sigma"], d["worst"]])
     failures = ", ".join(f"{k}: {v}" for k, v in sorted(summary["failure_statuses"].items()))
+    req = settings.requirements(vehicle)
+    exceeded = ", ".join(f"{k}: {v}" for k, v in summary["limits_exceeded"].items())
+    rate = f"{summary['no_plan_rate']:.3%}"
+    if summary["no_plan_rate_flagged"]:
+        rate += "  (HIGH: above 1 % of calls)"
     counts = [
-        ["runs", summary["runs"]], ["landed", summary["landed"]],
+        ["runs", summary["runs"]],
+        ["landed (within every touchdown requirement)", summary["landed"]],
+        ["out of limits", summary["out_of_limits"]],
+        ["crashed (touchdown faster than the crash speed)", summary["crashed"]],
         ["no initial plan", summary["no_initial_plan"]], ["no ground contact", summary["no_contact"]],
+        ["requirements: miss, vertical, horizontal speed, crash speed",
+         f"{req['miss_max_m']:g} m, {req['speed_vertical_max_mps']:g} m/s, "
+         f"{req['speed_horizontal_max_mps']:g} m/s, {req['crash_speed_mps']:g} m/s"],
+        ["runs past each limit", exceeded],
         ["propellant exhausted", summary["propellant_exhausted"]],
-        ["solves", summary["solves"]], ["solve failures", summary["solve_failures"]],
-        ["runs with a failed solve", summary["runs_with_failures"]],
-        ["failures by status", failures or "none"],
+        ["guidance calls", summary["solves"]],
+        ["calls without a flyable plan", summary["solve_failures"]],
+        ["share of calls without a flyable plan", rate],
+        ["calls without a flyable plan, by cause", failures or "none"],
+        ["runs with such a call", summary["runs_with_failures"]],
+        ["best-reachable plans flown (target out of reach)", summary["best_reachable_plans"]],
+        ["re-plans that used the engine's reserve", summary["reserve_plans"]],
+        ["highest throttle limit of a plan", summary["throttle_limit_max"]],
+        ["most iterations of one guidance call", summary["worst_call_iterations"]],
         ["worst solve time (any, incl. first search) [s]", summary["worst_solve_time_s"]],
         ["worst re-plan solve time [s]", summary["worst_replan_time_s"]],
     ]
@@ -44,5 +62,5 @@ def write_report(path, records, summary: dict, vehicle: Vehicle, errors: ErrorMo
     html = render("simulation.html.j2", runs=summary["runs"], vehicle_name=vehicle.name,
                   batch=summary.get("batch", {}), s=settings, errors_file=errors.source,
                   stat_rows=rows, count_rows=counts, run_rows=run_rows, error_rows=err_rows,
-                  figs=figures(records, vehicle, settings.target_m))
+                  figs=figures(records, vehicle, settings.target_m, req))
     write_atomic(path, html)

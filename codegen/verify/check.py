@@ -4,8 +4,12 @@ Cases are drawn from the vehicle file's envelope: most inside it, some on its
 faces and some beyond it (near and past the edge of feasibility), with fixed
 times of flight drawn over the lower part of the bracket (so that many are
 too short to be feasible) and every K-th case searching the time of flight.
-The reference runs without its two-stage fallback, because the generated
-code has none: both must then say the same thing.
+Both sides run the same sequence of solves (the target; when it is out of
+reach, the best reachable plan), so they must say the same thing. Every plan
+the generated solver hands out (optimal or least_miss) is also judged, in
+Python and independently of the C's own checks, against the real
+constraints (codegen.model.verdict.check_plan): two solvers can share one
+mistake, the constraints cannot.
 """
 
 from __future__ import annotations
@@ -18,7 +22,9 @@ import numpy as np
 
 from codegen.model.problem import time_of_flight_bracket
 from codegen.reference import ReferenceSolver
-from codegen.model.trajectory import OPTIMAL
+from codegen.model.policy import ERROR_SLACK_ABS, ERROR_SLACK_REL
+from codegen.model.trajectory import LEAST_MISS, OPTIMAL, SOLVED
+from codegen.model.verdict import check_plan
 
 #: Stated tolerances by precision: relative objective error (fixed time of
 #: flight), relative fuel error (searched time of flight, where the two
@@ -93,14 +99,41 @@ class CaseResult:
     failures: list = field(default_factory=list)
 
 
-def compare(gen, ref, case: Case, tol: dict, vehicle, length_m: float) -> CaseResult:
+def judge(vehicle, traj, precision: str = "double"):
+    """The real-constraint checks of a plan (codegen.model.verdict.check_plan),
+    recomputed here from the plan's own arrays; None when it carries no plan."""
+    if traj.status not in SOLVED or len(traj.accel_mps2) == 0:
+        return None
+    limit = traj.throttle_limit if math.isfinite(traj.throttle_limit) else None
+    return check_plan(vehicle, traj.time_of_flight_s, traj.position_m, traj.velocity_mps,
+                      traj.mass_kg, traj.accel_mps2, traj.accel_slack_mps2, traj.target_m,
+                      traj.velocity_target_mps, meets_target=traj.status == OPTIMAL,
+                      precision=precision, throttle_max=limit)
+
+
+def compare(gen, ref, case: Case, tol: dict, vehicle, length_m: float,
+            precision: str = "double") -> CaseResult:
     args = (case.position_m, case.velocity_mps, case.mass_kg, case.time_of_flight_s)
     g = gen.solve(*args)
-    r = ref.solve(*args, fallback=False)
+    r = ref.solve(*args)
     res = CaseResult(case, g.status, r.status, iterations_max=g.iterations_max,
                      solve_time_s=g.solve_time_s)
+    if g.status in (OPTIMAL, LEAST_MISS):
+        v = judge(vehicle, g, precision)
+        if v is not None and not v.flyable:
+            res.failures.append(f"{g.status} plan breaks {v.worst} "
+                                f"({v.violations[v.worst]:.3g}; independent check)")
     if g.status != r.status:
         res.failures.append(f"status {g.status} vs reference {r.status}")
+        return res
+    if g.status == LEAST_MISS:
+        # Best reachable plans: the least terminal error, then the least fuel
+        # with that error relaxed by at most the largest slack
+        # (codegen.model.policy); the two may settle anywhere in that band.
+        band = ERROR_SLACK_REL[-1] * max(g.terminal_error, r.terminal_error) + ERROR_SLACK_ABS
+        if not abs(g.terminal_error - r.terminal_error) <= band:
+            res.failures.append(f"terminal error {g.terminal_error:.4g} vs reference "
+                                f"{r.terminal_error:.4g} (band {band:.3g})")
         return res
     if g.status != OPTIMAL:
         return res
@@ -187,7 +220,7 @@ def check_tree(tree_dir, cases: int, seed: int, search_every: int = 5,
     drawn = draw_cases(vehicle, cases, seed, search_every)
     results = []
     for i, case in enumerate(drawn):
-        results.append(compare(gen, ref, case, tol, vehicle, length))
+        results.append(compare(gen, ref, case, tol, vehicle, length, precision))
         if on_case is not None:
             on_case(i + 1, len(drawn))
     return CheckRun(gen, precision, tol, length, results, summarise(results, tol))

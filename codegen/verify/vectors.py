@@ -4,7 +4,8 @@ Every vector is one call of ``<prefix>_plan_descent()``: the inputs (state,
 time of flight or 0 for a search, target, settings) and what the answer must
 be. Expected outputs come from the reference solve
 (:class:`codegen.reference.ReferenceSolver`, Clarabel at tight tolerances,
-no two-stage fallback because the generated code has none), except for the
+with the generated code's default sequence of solves: the best reachable
+plan when the target cannot be met), except for the
 few vectors that test the C API's own contract (settings out of range, an
 iteration cap too small to converge), which have no Python counterpart; those
 say ``source = "contract"``.
@@ -28,7 +29,9 @@ import numpy as np
 from codegen.verify.check import TOLERANCES, draw_cases
 from codegen.model.problem import Scaling, time_of_flight_bracket
 from codegen.reference import ReferenceSolver
-from codegen.model.trajectory import BAD_INPUT, INFEASIBLE, ITERATION_LIMIT, OPTIMAL
+from codegen.model.policy import ERROR_SLACK_ABS, ERROR_SLACK_REL
+from codegen.model.trajectory import (BAD_INPUT, INFEASIBLE, ITERATION_LIMIT, LEAST_MISS,
+                                      LIMITS_VIOLATED, OPTIMAL)
 
 #: Seed of the few dispersed inside points (fixed: the vectors are the same every run).
 INSIDE_SEED = 20260
@@ -39,7 +42,9 @@ OUTSIDE_FACTORS = (1.4, 3.0)
 TINY_ITERATION_CAP = 2
 
 STATUS_CODES = {OPTIMAL: 0, INFEASIBLE: 1, ITERATION_LIMIT: 2, "numerical_trouble": 3,
-                BAD_INPUT: 4}
+                BAD_INPUT: 4, LEAST_MISS: 5, LIMITS_VIOLATED: 6}
+#: Statuses whose vectors carry a plan to compare.
+WITH_PLAN = (OPTIMAL, LEAST_MISS)
 
 
 @dataclass
@@ -59,6 +64,7 @@ class Vector:
     expect_tof_s: float = math.nan
     fuel_kg: float = math.nan
     objective: float = math.nan
+    terminal_error: float = math.nan   # weighted terminal error (least_miss)
     position: list | None = None    # (N+1) x 3 expected positions [m]
     thrust: list | None = None      # N x 3 expected thrust [N]
     note: str = ""
@@ -84,6 +90,12 @@ def tolerances(precision: str, vehicle, tof_tolerance_s: float) -> dict:
         "position_abs_m": t["position_rel"] * length,
         "thrust_abs_n": t["thrust_rel"] * vehicle.thrust_upper_n,
         "same_tof_rel": 1e-9,
+        # A best reachable plan: the least terminal error, then the least
+        # fuel with that error relaxed by at most the largest slack of the
+        # sequence of solves (codegen.model.policy); two solvers may settle
+        # anywhere in that band, so it is the tolerance.
+        "terminal_error_rel": ERROR_SLACK_REL[-1],
+        "terminal_error_abs": ERROR_SLACK_ABS,
         "position_rel_of_length": t["position_rel"],
         "thrust_rel_of_upper": t["thrust_rel"],
         "length_m": length,
@@ -92,10 +104,12 @@ def tolerances(precision: str, vehicle, tof_tolerance_s: float) -> dict:
 
 def _fill(vec: Vector, traj) -> Vector:
     vec.status = traj.status
-    if traj.status == OPTIMAL:
+    if traj.status in WITH_PLAN:
         vec.expect_tof_s = float(traj.time_of_flight_s)
         vec.fuel_kg = float(traj.fuel_kg)
         vec.objective = float(traj.objective)
+        vec.terminal_error = float(traj.terminal_error)
+    if traj.status == OPTIMAL:
         vec.position = np.asarray(traj.position_m, float).tolist()
         vec.thrust = np.asarray(traj.thrust_n, float).tolist()
     return vec
@@ -116,7 +130,7 @@ def build_vectors(vehicle, horizon: int, progress=None) -> list:
     def solve(vec: Vector) -> Vector:
         tof = None if vec.searched else vec.time_of_flight_s
         return _fill(vec, ref.solve(vec.position_m, vec.velocity_mps, vec.mass_kg, tof,
-                                    vec.target_m, fallback=False))
+                                    vec.target_m))
 
     def pair(name, kind, p, v, m, target=(0.0, 0.0, 0.0), also=()):
         """A searched vector and, when solved, fixed ones at its time of flight (x factors)."""
@@ -171,8 +185,7 @@ def build_vectors(vehicle, horizon: int, progress=None) -> list:
         fields.update(change)
         vec = Vector(f"bad-{name}", "bad_input", "reference", **fields)
         tof = None if vec.time_of_flight_s == 0.0 else vec.time_of_flight_s
-        traj = ref.solve(vec.position_m, vec.velocity_mps, vec.mass_kg, tof, vec.target_m,
-                         fallback=False)
+        traj = ref.solve(vec.position_m, vec.velocity_mps, vec.mass_kg, tof, vec.target_m)
         out.append(_fill(vec, traj))
     # The C API's own contract: settings out of range, NULL workspace, tiny iteration cap.
     fixed_tof = mid.expect_tof_s if mid.status == OPTIMAL else 0.5 * (t_min + t_max)

@@ -46,8 +46,12 @@ def _num(x):
     return None if x is None or not math.isfinite(x) else float(x)
 
 
-def outcome(traj) -> dict:
-    """The scalar part of a Trajectory that a campaign records."""
+def outcome(traj, vehicle=None, precision: str = "double") -> dict:
+    """The scalar part of a Trajectory that a campaign records. With
+    ``vehicle``, also the plan's real-constraint checks recomputed here from
+    its arrays (codegen.verify.check.judge; None when it carries no plan)."""
+    from codegen.verify.check import judge
+    verdict = judge(vehicle, traj, precision) if vehicle is not None else None
     return {
         "status": traj.status,
         "iterations": int(traj.iterations),
@@ -60,6 +64,10 @@ def outcome(traj) -> dict:
         "landing_miss_m": _num(traj.landing_miss_m),
         "objective": _num(traj.objective),
         "message": traj.message,
+        "terminal_error": _num(traj.terminal_error),
+        "throttle_limit": _num(traj.throttle_limit),
+        "flyable": None if verdict is None else bool(verdict.flyable),
+        "worst_check": None if verdict is None else verdict.worst,
     }
 
 
@@ -95,13 +103,12 @@ def run_case(ctx: CaseContext, index: int) -> dict:
     case = ctx.dispersions.case(index)
     generated, reference = _solvers(ctx.solver_dir, case.thrust_derate)
     args = (list(case.position_m), list(case.velocity_mps), case.mass_kg, case.time_of_flight_s)
-    gen = outcome(generated.solve(*args))
+    precision = getattr(generated, "manifest", {}).get("precision", "double")
+    gen = outcome(generated.solve(*args), generated.vehicle, precision)
     why = reference_reasons(ctx, index, gen)
     ref = acc = None
     if why:
-        # Without the two-stage fallback: the generated code has none, so a
-        # target out of reach must read "infeasible" on both sides.
-        ref = outcome(reference.solve(*args))
+        ref = outcome(reference.solve(*args), reference.vehicle)
         acc = accuracy(gen, ref)
     return {"case": index, "inputs": case.as_dict(), "generated": gen, "reference": ref,
             "reference_why": why, "accuracy": acc, "wall_s": time.perf_counter() - t0}

@@ -9,7 +9,7 @@ STATUS_COLOURS = {"optimal": "#2a7f2a", "least_miss": "#e08a00", "infeasible": "
                   "iteration_limit": "#7a1fa2", "numerical_trouble": "#1f5fbf", "bad_input": "#555555"}
 
 
-def figures(records) -> dict:
+def figures(records, cap=None, call_bound=None) -> dict:
     """The report's pictures, as data URIs."""
     import matplotlib
     matplotlib.use("Agg")
@@ -26,8 +26,10 @@ def figures(records) -> dict:
     it_tot = np.array([g["iterations_total"] for g in gens])
 
     fig, axes = plt.subplots(1, 2, figsize=(10, 3.6))
-    for ax, data, label in ((axes[0], it_max, "most iterations in one solve"),
-                            (axes[1], it_tot, "iterations in the whole time-of-flight search")):
+    for ax, data, label, bound, bound_label in (
+            (axes[0], it_max, "most iterations in one solve", cap, "per-solve cap"),
+            (axes[1], it_tot, "iterations of the whole call", call_bound,
+             "call bound (cap x worst-case solves)")):
         lo, hi = int(data.min()), int(data.max())
         step = max(1, (hi - lo + 1) // 60)
         bins = np.arange(lo, hi + step + 1, step) - 0.5
@@ -38,6 +40,8 @@ def figures(records) -> dict:
         ax.yaxis.set_major_formatter(matplotlib.ticker.ScalarFormatter())
         ax.yaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
         ax.axvline(hi, color="#c02020", lw=1, ls="--", label=f"worst {hi}")
+        if bound:
+            ax.axvline(bound, color="#202020", lw=1.2, label=f"{bound_label} {bound}")
         ax.legend(fontsize=8)
     figs["iterations"] = figure_png_base64(fig)
 

@@ -85,7 +85,6 @@ def replay_command(manifest: dict, record: dict, vehicle_path=None) -> str:
         parts.append(f"--tof={float(inp['time_of_flight_s'])!r}")
     if manifest["solver_backend"] == DRY_RUN_BACKEND:
         parts.append(f"--horizon={manifest['horizon']}")
-        parts.append("--no-fallback")
     else:
         parts.append(f"--solver-dir={shlex.quote(solver_dir)}")
     parts.append("--json")

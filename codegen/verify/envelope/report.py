@@ -17,8 +17,9 @@ def render_report(summary: dict, records: list, manifest: dict) -> str:
     from codegen.report import render
     from codegen.verify.dispersions import parse_distribution
 
-    figs = figures(records) if records else {}
     g = summary["generated"]
+    figs = figures(records, g.get("iterations_per_solve_cap"),
+                   g.get("iterations_per_call_bound")) if records else {}
 
     def stat_row(label, st, scale=1.0, unit=""):
         if st is None:
@@ -72,6 +73,14 @@ def render_report(summary: dict, records: list, manifest: dict) -> str:
         status_rows=[[s, n, f"{100.0 * n / max(1, summary['cases_done']):.2f} %"]
                      for s, n in g["status_counts"].items()],
         reference_status_rows=list(ref["status_counts"].items()),
+        bound_rows=[
+            ["plans handed out that break a real constraint (judged from their arrays)",
+             f"{g.get('plans_breaking_constraints', '-')} of {g.get('plans_judged', '-')}"],
+            ["solves above the per-solve cap",
+             "-" if g.get("solves_above_cap") is None else
+             f"{g['solves_above_cap']} (cap {g['iterations_per_solve_cap']})"],
+            ["stated bound of one call [iterations]",
+             g.get("iterations_per_call_bound") or "-"]],
         reason_rows=[[why.get(k, k), n] for k, n in ref["reasons"].items()],
         acc=a, accuracy_rows=accuracy_rows,
         status_pair_rows=[[p["generated"], p["reference"], p["cases"]] for p in a["status_pairs"]],

@@ -42,9 +42,24 @@ def _worst_by(records, key, count, value):
     return [c for _, c in scored[:count]]
 
 
+def iteration_limits(solver_dir) -> dict:
+    """The tree's stated bounds: the per-solve cap (its default setting) and
+    the iterations of a whole call (cap x worst-case solves of a searched
+    call); {} when the solver is not a generated tree (a dry run)."""
+    import json
+    from pathlib import Path
+    try:
+        opts = json.loads((Path(solver_dir) / "manifest.json").read_text())["options"]
+        cap = int(opts["iterations_per_solve_max_default"])
+        return {"cap": cap, "call_bound": cap * int(opts["solves_per_call_max_search"])}
+    except (OSError, ValueError, KeyError, TypeError):
+        return {}
+
+
 def summarise(run_dir, worst: int = WORST_CASES, write_replay_vehicles: bool = True) -> dict:
     """The JSON summary of a run (complete or not)."""
     man, records = load_run(run_dir)
+    limits = iteration_limits(man["solver_dir"])
     gens = [r["generated"] for r in records]
     refs = [r for r in records if r["reference"] is not None]
     accs = [r for r in refs if r["accuracy"] is not None]
@@ -111,6 +126,16 @@ def summarise(run_dir, worst: int = WORST_CASES, write_replay_vehicles: bool = T
         "stand_out_iterations": man["stand_out_iterations"],
         "generated": {
             "status_counts": _counts(g["status"] for g in gens),
+            # Plans handed out (optimal, least_miss) that break a real
+            # constraint beyond tolerance, judged here from their own arrays.
+            "plans_judged": sum(1 for g in gens if g.get("flyable") is not None),
+            "plans_breaking_constraints": sum(1 for g in gens if g.get("flyable") is False),
+            "plans_breaking_constraints_cases": [r["case"] for r in records
+                                                 if r["generated"].get("flyable") is False][:100],
+            "solves_above_cap": sum(1 for g in gens if g["iterations_max"] > limits["cap"])
+            if limits.get("cap") else None,
+            "iterations_per_solve_cap": limits.get("cap"),
+            "iterations_per_call_bound": limits.get("call_bound"),
             "iterations": stats(g["iterations"] for g in gens),
             "iterations_max": stats(g["iterations_max"] for g in gens),
             "iterations_total": stats(g["iterations_total"] for g in gens),

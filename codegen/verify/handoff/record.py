@@ -53,9 +53,10 @@ def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, camp
              ("tof_tolerance_s (default)", opts.get("tof_tolerance_s"),
               "time-of-flight search stops when its bracket is shorter"),
              ("time-of-flight search",
-              f"grid of {tofsearch.GRID_POINTS}, up to {tofsearch.GRID_REFINEMENTS} refinements, "
-              f"then golden section (at most {tofsearch.GOLDEN_MAX_STEPS} steps); a failed solve "
-              f"is retried once nearby (at most {tofsearch.RETRY_BUDGET} retries)",
+              f"two phases (target, then merit) of a grid of {tofsearch.GRID_POINTS} and Brent's "
+              f"minimiser (at most {tofsearch.BRENT_MAX_STEPS} steps); a failed probe is retried "
+              f"once nearby (at most {tofsearch.RETRY_BUDGET} retries); at most "
+              f"{tofsearch.max_evaluations()} probes",
               "bracket of Acikmese & Ploen (2007) from the current state")]
     sec.append({"title": "Horizon and settings", "blocks": [
         _text(f"N = {n} intervals ({n + 1} nodes), zero-order hold on thrust. "
@@ -90,8 +91,8 @@ def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, camp
     sec.append({"title": "Test vectors", "blocks": [
         _text(f"{len(vectors)} vectors in `test/{prefix}_vectors.c` "
               f"({', '.join(f'{k} {c}' for k, c in kinds.items())}). Expected outputs come "
-              "from the reference solve (Clarabel through CVXPY at tight tolerances, 1e-9, no "
-              "two-stage fallback since the generated code has none), except `contract` "
+              "from the reference solve (Clarabel through CVXPY at tight tolerances, 1e-9, with "
+              "the generated code's default sequence of solves), except `contract` "
               "vectors, whose expected status is the behaviour the header promises. "
               "Tolerances are those of `pdgc check` for this precision. Fixed-time-of-flight "
               "vectors carry the tight checks; a searched time of flight may land on a "
@@ -150,8 +151,9 @@ def _solver_check_blocks(c: dict) -> list:
     blocks = [_text("`pdgc check` on the tree: the generated solver (compiled on the host "
                     "through cffi) against the reference on dispersed states drawn from the "
                     "envelope (70 % inside, 20 % on its faces, 10 % beyond), fixed times of "
-                    "flight over the lower part of the bracket, the reference without its "
-                    "two-stage fallback."),
+                    "flight over the lower part of the bracket, both running the same sequence of "
+                    "solves; every plan the generated solver hands out is also judged against "
+                    "the real constraints, independently of the C's own checks."),
               _table(("item", "value"), rows)]
     if c["failed_cases"]:
         blocks.append(_code("\n".join(f"case {f['index']} ({f['kind']}): {'; '.join(f['why'])}"
@@ -188,10 +190,8 @@ def _campaign_blocks(s: dict) -> list:
             rows.append((key.replace("_", " "), f"{_g(w['value'])} (case {w['case']})"))
     return [_text("Summary of the envelope campaign (`pdgc envelope`) run on this tree "
                   "(its summary.json; the run's manifest names this tree's manifest hash). "
-                  "In a campaign the reference uses its two-stage fallback: where the target "
-                  "is out of reach it answers `least_miss`, which the generated code does not "
-                  "have (it answers `infeasible`), and the status agreement counts those cases "
-                  "as disagreements."),
+                  "Both sides run the same sequence of solves: where the target is out of "
+                  "reach, both answer `least_miss` (the best reachable plan)."),
             _table(("item", "value"), rows)]
 
 
