@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 
 from codegen.errors import InputError
-from codegen.model.trajectory import OPTIMAL
+from codegen.model.trajectory import TARGET_MET
 from codegen.model.vehicle import load_vehicle
 from codegen.reference import ReferenceSolver
 
@@ -181,7 +181,7 @@ def make_instances(cfg: Config) -> list:
         x = lo + (hi - lo) * np.random.default_rng([cfg.seed, i]).random(7)
         inst = Instance(f"draw{i}", tuple(float(v) for v in x[:3]),
                         tuple(float(v) for v in x[3:6]), float(x[6]), cfg.time_of_flight_s)
-        if all(r.solve(*inst.args(), fallback=False).status == OPTIMAL for r in refs):
+        if all(r.solve(*inst.args(), fallback=False).status == TARGET_MET for r in refs):
             out.append(inst)
         i += 1
     return out

@@ -14,7 +14,7 @@ import numpy as np
 
 from bench.builds import Build, time_in_c
 from bench.config import BACKENDS, LABELS, NOMINAL, REFERENCE, Config, Instance, say
-from codegen.model.trajectory import OPTIMAL
+from codegen.model.trajectory import TARGET_MET
 from codegen.model.vehicle import load_vehicle
 from codegen.reference import ReferenceSolver
 
@@ -142,8 +142,8 @@ def summarise(cfg: Config, builds: dict, meas: dict) -> list:
         errs = [rel_error(r["c"]["objective"], ref_obj[r["instance"]]) for r in recs]
         rows.append({
             "backend": b, "label": LABELS[b], "horizon": n, "instances": len(recs),
-            "optimal": sum(r["c"]["status"] == OPTIMAL for r in recs),
-            "optimal_cffi": sum(r["cffi_status"] == OPTIMAL for r in recs),
+            "target_met": sum(r["c"]["status"] == TARGET_MET for r in recs),
+            "optimal_cffi": sum(r["cffi_status"] == TARGET_MET for r in recs),
             "repetitions": meas["reps"][b],
             "median_s": _median([r["c"]["median_s"] for r in recs]),
             "worst_s": _max([r["c"]["worst_s"] for r in recs]),
@@ -165,7 +165,7 @@ def summarise(cfg: Config, builds: dict, meas: dict) -> list:
             "search_median_s": _median([s["median_s"] for s in srch]),
             "search_worst_s": _max([s["worst_s"] for s in srch]),
             "search_solves_median": _median([s["solves"] for s in srch]),
-            "search_optimal": sum(s["status"] == OPTIMAL for s in srch),
+            "search_optimal": sum(s["status"] == TARGET_MET for s in srch),
             "source_bytes_guidance": bd.source_bytes_guidance,
             "source_bytes_solver": bd.source_bytes_solver,
             "source_bytes": bd.source_bytes,
@@ -185,7 +185,7 @@ def summarise(cfg: Config, builds: dict, meas: dict) -> list:
     rs = meas.get("reference_search") or {}
     rows.append({
         "backend": REFERENCE, "label": LABELS[REFERENCE], "horizon": n, "instances": len(rr),
-        "optimal": sum(r["status"] == OPTIMAL for r in rr), "repetitions": cfg.reference_reps,
+        "target_met": sum(r["status"] == TARGET_MET for r in rr), "repetitions": cfg.reference_reps,
         "median_s": _median([r["wall_median_s"] for r in rr]),
         "worst_s": _max([r["wall_worst_s"] for r in rr]),
         "best_s": _median([r["wall_best_s"] for r in rr]),

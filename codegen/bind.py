@@ -31,8 +31,8 @@ from codegen.model.vehicle import load_vehicle
 from codegen.model.verdict import CHECKS
 
 #: The C enum {prefix}_status, in order (templates/guidance.h.j2).
-_STATUS_NAMES = ("optimal", "infeasible", "iteration_limit", "numerical_trouble", "bad_input",
-                 "least_miss", "limits_violated")
+_STATUS_NAMES = ("target_met", "unreachable", "iterations_exhausted", "solver_breakdown", "input_refused",
+                 "best_reachable", "limits_violated")
 assert all(s in STATUSES for s in _STATUS_NAMES)
 #: The C enum {prefix}_mode, in order.
 _MODE_NAMES = ("target", "merit", "least_error", "fuel_at_error")
@@ -47,8 +47,8 @@ def cdef_text(prefix: str, n: int) -> str:
     P = prefix.upper()
     nc = len(CHECKS)
     return f"""
-typedef enum {{ {P}_OPTIMAL = 0, {P}_INFEASIBLE = 1, {P}_ITERATION_LIMIT = 2,
-               {P}_NUMERICAL_TROUBLE = 3, {P}_BAD_INPUT = 4, {P}_LEAST_MISS = 5,
+typedef enum {{ {P}_TARGET_MET = 0, {P}_UNREACHABLE = 1, {P}_ITERATIONS_EXHAUSTED = 2,
+               {P}_SOLVER_BREAKDOWN = 3, {P}_INPUT_REFUSED = 4, {P}_BEST_REACHABLE = 5,
                {P}_LIMITS_VIOLATED = 6 }} {prefix}_status;
 typedef enum {{ {P}_MODE_TARGET = 0, {P}_MODE_MERIT = 1, {P}_MODE_LEAST_ERROR = 2,
                {P}_MODE_FUEL_AT_ERROR = 3 }} {prefix}_mode;
@@ -178,7 +178,7 @@ class GeneratedSolver:
               target_m=(0.0, 0.0, 0.0), fallback: bool = True,
               velocity_target_mps=(0.0, 0.0, 0.0), throttle_max=None,
               reserve_throttle_max=None, reserve_steps=None) -> Trajectory:
-        """As ReferenceSolver.solve; the C checks the inputs (BAD_INPUT)."""
+        """As ReferenceSolver.solve; the C checks the inputs (INPUT_REFUSED)."""
         inp, st = self._input, self._settings
         for i in range(3):
             inp.position_m[i] = float(position_m[i])
@@ -198,9 +198,9 @@ class GeneratedSolver:
         t0 = time.perf_counter()
         code = int(self._plan_fn(self._work, inp, st, self._plan))
         elapsed = time.perf_counter() - t0
-        status = _STATUS_NAMES[code] if 0 <= code < len(_STATUS_NAMES) else "numerical_trouble"
+        status = _STATUS_NAMES[code] if 0 <= code < len(_STATUS_NAMES) else "solver_breakdown"
         n = self.horizon
-        if status == "bad_input":
+        if status == "input_refused":
             return Trajectory(status=status, solver=self.name, horizon=n, solve_time_s=elapsed,
                               message="input refused by the generated solver (see its header)")
         pl = self._plan
@@ -216,7 +216,7 @@ class GeneratedSolver:
                           solve_time_s=elapsed)
         if pl.budget_exhausted:
             traj.message = "stopped by the call's iteration budget (iterations_per_call_max)"
-        if status in ("optimal", "least_miss", "limits_violated"):
+        if status in ("target_met", "best_reachable", "limits_violated"):
             traj.t_s = arr(pl.t_s, (n + 1,))
             traj.position_m = arr(pl.position_m, (n + 1, 3))
             traj.velocity_mps = arr(pl.velocity_mps, (n + 1, 3))

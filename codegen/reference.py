@@ -41,8 +41,8 @@ from codegen.model.canonical import CLARABEL_TIGHT
 from codegen.model.policy import (ERROR_SLACK_ABS, ERROR_SLACK_REL, MERIT_MEETS_TARGET,
                                   PROBE_TOLERANCE, RESERVE_STEPS, RESERVE_STEPS_MAX)
 from codegen.model.problem import DescentProblem, reach_bracket, time_of_flight_bracket
-from codegen.model.trajectory import (BAD_INPUT, INFEASIBLE, ITERATION_LIMIT, LEAST_MISS,
-                                      LIMITS_VIOLATED, NUMERICAL_TROUBLE, OPTIMAL, Trajectory)
+from codegen.model.trajectory import (INPUT_REFUSED, UNREACHABLE, ITERATIONS_EXHAUSTED, BEST_REACHABLE,
+                                      LIMITS_VIOLATED, SOLVER_BREAKDOWN, TARGET_MET, Trajectory)
 from codegen.model.vehicle import Vehicle
 from codegen.model.verdict import check_plan
 
@@ -63,14 +63,14 @@ CLARABEL_RETRIES = (
 )
 
 _STATUS = {
-    cp.OPTIMAL: OPTIMAL,
-    cp.INFEASIBLE: INFEASIBLE,
-    cp.OPTIMAL_INACCURATE: NUMERICAL_TROUBLE,
-    cp.INFEASIBLE_INACCURATE: NUMERICAL_TROUBLE,
-    cp.UNBOUNDED: NUMERICAL_TROUBLE,
-    cp.UNBOUNDED_INACCURATE: NUMERICAL_TROUBLE,
-    cp.USER_LIMIT: ITERATION_LIMIT,
-    cp.SOLVER_ERROR: NUMERICAL_TROUBLE,
+    cp.OPTIMAL: TARGET_MET,
+    cp.INFEASIBLE: UNREACHABLE,
+    cp.OPTIMAL_INACCURATE: SOLVER_BREAKDOWN,
+    cp.INFEASIBLE_INACCURATE: SOLVER_BREAKDOWN,
+    cp.UNBOUNDED: SOLVER_BREAKDOWN,
+    cp.UNBOUNDED_INACCURATE: SOLVER_BREAKDOWN,
+    cp.USER_LIMIT: ITERATIONS_EXHAUSTED,
+    cp.SOLVER_ERROR: SOLVER_BREAKDOWN,
 }
 
 
@@ -137,20 +137,20 @@ class ReferenceSolver:
         status, msg, iters = self._solve_once(dp, self.probe_options if probe else
                                               self.solver_options)
         for label, solver, options in (() if probe else self.retry_options):
-            if status != NUMERICAL_TROUBLE:
+            if status != SOLVER_BREAKDOWN:
                 break
             # Tight tolerances can stall just short of them ("almost
             # solved"); then a looser one is the reference, and we say so.
             status, msg, more = self._solve_once(dp, options, solver)
             iters += more
-            if status == OPTIMAL:
+            if status == TARGET_MET:
                 msg = f"solved at {label} (tighter tolerances stalled)"
         elapsed = time.perf_counter() - t0
         traj = Trajectory(status=status, solver=self.name, horizon=self.horizon,
                           time_of_flight_s=float(time_of_flight_s), iterations=iters,
                           iterations_total=iters, iterations_max=iters, solves=1,
                           solve_time_s=elapsed, message=msg, plan_mode=mode)
-        if status == OPTIMAL:
+        if status == TARGET_MET:
             fill_from_scaled(traj, dp, {k: v.value for k, v in dp.vars.items()},
                              float(dp.problem.value), target_m, velocity_target_mps)
         return traj
@@ -165,9 +165,9 @@ class ReferenceSolver:
                 # order of solves: after an infeasible instance a feasible one
                 # came back "almost solved".
                 dp.problem.solve(solver=solver or self.solver, warm_start=False, **options)
-            status, msg = _STATUS.get(dp.problem.status, NUMERICAL_TROUBLE), ""
+            status, msg = _STATUS.get(dp.problem.status, SOLVER_BREAKDOWN), ""
         except cp.error.SolverError as exc:
-            status, msg = NUMERICAL_TROUBLE, str(exc)
+            status, msg = SOLVER_BREAKDOWN, str(exc)
         stats = dp.problem.solver_stats
         iters = int(stats.num_iters or 0) if stats is not None else 0
         return status, msg, iters
@@ -181,9 +181,9 @@ class ReferenceSolver:
 
         Without a time of flight, search it over the published bracket.
         ``fallback`` allows a plan that ends off the target when the target
-        cannot be met (status ``least_miss``: the best reachable plan, with
+        cannot be met (status ``best_reachable``: the best reachable plan, with
         its predicted terminal error); without it such a state is reported
-        ``infeasible``. ``throttle_max`` is a run-time limit on the throttle
+        ``unreachable``. ``throttle_max`` is a run-time limit on the throttle
         (fraction of thrust_max_n, in [throttle_min, 1]) in place of the
         vehicle's planning limit (a derated engine, say).
         ``reserve_throttle_max``: at a fixed time of flight, when the target
@@ -208,7 +208,7 @@ class ReferenceSolver:
                 raise InputError("reserve_steps", reserve_steps,
                                  f"must be an integer in [0, {RESERVE_STEPS_MAX}]")
         except InputError as exc:
-            return Trajectory(status=BAD_INPUT, solver=self.name, horizon=self.horizon,
+            return Trajectory(status=INPUT_REFUSED, solver=self.name, horizon=self.horizon,
                               message=str(exc))
         t0 = time.perf_counter()
         spent = {"iters": 0, "max": 0, "solves": 0}
@@ -247,9 +247,9 @@ class ReferenceSolver:
                 # infeasible; numerical trouble or an iteration limit says
                 # nothing about t (tofsearch's rule for failures).
                 tr = run(mode, t, probe=True)
-                if tr.status == OPTIMAL and math.isfinite(tr.objective):
+                if tr.status == TARGET_MET and math.isfinite(tr.objective):
                     return tofsearch.SOLVED, tr.objective, tr
-                if tr.status == INFEASIBLE:
+                if tr.status == UNREACHABLE:
                     return tofsearch.INFEASIBLE, math.inf, tr
                 return tofsearch.FAILED, math.nan, tr
 
@@ -257,7 +257,7 @@ class ReferenceSolver:
             if found.t_best is None:
                 traj = found.payload_best
                 if traj is None:      # cannot happen: a search evaluates at least once
-                    traj = Trajectory(status=NUMERICAL_TROUBLE, solver=self.name,
+                    traj = Trajectory(status=SOLVER_BREAKDOWN, solver=self.name,
                                       horizon=self.horizon)
                 traj = _without_plan(traj)
             else:
@@ -280,7 +280,7 @@ class ReferenceSolver:
         tried = []
         if try_target:
             tr = run("target", tof)
-            if tr.status == OPTIMAL:
+            if tr.status == TARGET_MET:
                 if self._judge(tr, meets_target=True):
                     return tr
             tried.append(tr)
@@ -289,12 +289,12 @@ class ReferenceSolver:
             top, steps = reserve
             limit = top
             best = run("target", tof, limit=top)
-            if best.status == OPTIMAL and self._judge(best, meets_target=True):
+            if best.status == TARGET_MET and self._judge(best, meets_target=True):
                 lo, hi = planning, top
                 for _ in range(steps):
                     mid = 0.5 * (lo + hi)
                     tr = run("target", tof, limit=mid)
-                    if tr.status == OPTIMAL and self._judge(tr, meets_target=True):
+                    if tr.status == TARGET_MET and self._judge(tr, meets_target=True):
                         hi, best = mid, tr
                     else:
                         lo = mid
@@ -306,20 +306,20 @@ class ReferenceSolver:
             first = run("least_error", tof, limit=limit)
             tried.append(first)
             candidates = []
-            if first.status == OPTIMAL:
+            if first.status == TARGET_MET:
                 for slack in ERROR_SLACK_REL:
                     bound = first.terminal_error * (1.0 + slack) + ERROR_SLACK_ABS
                     second = run("fuel_at_error", tof, err_max=bound, limit=limit)
                     tried.append(second)
                     candidates.append(second)
-                    if second.status == OPTIMAL and self._judge(second, meets_target=False):
+                    if second.status == TARGET_MET and self._judge(second, meets_target=False):
                         break
-                    if second.status != OPTIMAL:
+                    if second.status != TARGET_MET:
                         break
                 candidates.append(first)
                 for tr in candidates:
-                    if tr.status == OPTIMAL and self._judge(tr, meets_target=False):
-                        tr.status = LEAST_MISS
+                    if tr.status == TARGET_MET and self._judge(tr, meets_target=False):
+                        tr.status = BEST_REACHABLE
                         tr.message = (f"target out of reach: best reachable plan ends "
                                       f"weighted error {tr.terminal_error:.4g} "
                                       f"({tr.terminal_miss_m:.4g} m, "
@@ -328,16 +328,16 @@ class ReferenceSolver:
         # No flyable plan. A converged plan that breaks a real constraint is
         # reported with its violation; otherwise the first failure says why.
         for tr in tried:
-            if tr.status == OPTIMAL:
+            if tr.status == TARGET_MET:
                 tr.status = LIMITS_VIOLATED
                 tr.message = f"plan breaks a real constraint: {tr.verdict_text}"
                 return tr
         for tr in tried:
-            if tr.status != INFEASIBLE:
+            if tr.status != UNREACHABLE:
                 return _without_plan(tr)
         if tried:
             return _without_plan(tried[-1])
-        return Trajectory(status=INFEASIBLE, solver=self.name, horizon=self.horizon,
+        return Trajectory(status=UNREACHABLE, solver=self.name, horizon=self.horizon,
                           time_of_flight_s=float(tof),
                           message="target out of reach at this time of flight (rocket equation)")
 

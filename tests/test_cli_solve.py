@@ -23,7 +23,7 @@ def test_init_writes_demo_and_refuses_overwrite(tmp_path, capsys):
 def test_solve_table(capsys):
     assert main(["solve", str(DEMO_VEHICLE), "--state", STATE, "--horizon", "20"]) == 0
     out = capsys.readouterr().out
-    for row in ("status", "optimal", "time of flight", "fuel", "throttle min / max",
+    for row in ("status", "target_met", "time of flight", "fuel", "throttle min / max",
                 "pointing margin", "glide-slope margin", "tightness gap"):
         assert row in out
     gap = float(out.split("tightness gap |u| vs sigma")[1].split()[0])
@@ -38,7 +38,7 @@ def test_solve_json_schema_and_plot(tmp_path, capsys):
     for key in ("status", "time_of_flight_s", "fuel_kg", "landing_miss_m", "iterations",
                 "t_s", "position_m", "velocity_mps", "mass_kg", "thrust_n"):
         assert key in d
-    assert d["status"] == "optimal" and d["time_of_flight_s"] == 40.0
+    assert d["status"] == "target_met" and d["time_of_flight_s"] == 40.0
     assert len(d["t_s"]) == 16 and len(d["thrust_n"]) == 15 and len(d["position_m"][0]) == 3
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
@@ -57,10 +57,10 @@ def test_out_of_reach_is_a_warned_plan_or_exit_1(capsys):
     # or with --no-fallback no plan (exit 1).
     code = main(["solve", str(DEMO_VEHICLE), "--state", STATE, "--horizon", "10", "--tof", "5"])
     out = capsys.readouterr()
-    assert code == 0 and "least_miss" in out.out and "warning: target out of reach" in out.err
+    assert code == 0 and "best_reachable" in out.out and "warning: target out of reach" in out.err
     code = main(["solve", str(DEMO_VEHICLE), "--state", STATE, "--horizon", "10", "--tof", "5",
                  "--no-fallback"])
-    assert code == 1 and "infeasible" in capsys.readouterr().out
+    assert code == 1 and "unreachable" in capsys.readouterr().out
 
 
 def test_console_script_runs():
@@ -70,12 +70,12 @@ def test_console_script_runs():
 
 
 def test_no_fallback_reports_infeasible_like_generated_code(capsys):
-    # Out of reach (14 km downrange, 6 deg above the target: inside the glide slope): least_miss with the two-stage plan
+    # Out of reach (14 km downrange, 6 deg above the target: inside the glide slope): best_reachable with the two-stage plan
     # (least terminal error, then least fuel: Blackmore, Acikmese & Scharf
     # 2010, extended to the velocity), infeasible without it.
     far = "14000,0,1500,-50,0,-40,1900"
     assert main(["solve", str(DEMO_VEHICLE), "--state", far, "--horizon", "10", "--json"]) == 0
-    assert json.loads(capsys.readouterr().out)["status"] == "least_miss"
+    assert json.loads(capsys.readouterr().out)["status"] == "best_reachable"
     assert main(["solve", str(DEMO_VEHICLE), "--state", far, "--horizon", "10", "--json",
                  "--no-fallback"]) == 1
-    assert json.loads(capsys.readouterr().out)["status"] == "infeasible"
+    assert json.loads(capsys.readouterr().out)["status"] == "unreachable"

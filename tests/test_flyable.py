@@ -14,7 +14,7 @@ import pytest
 from scipy.integrate import solve_ivp
 
 from codegen.model.problem import Scaling, reach_bracket, time_of_flight_bracket
-from codegen.model.trajectory import LEAST_MISS, LIMITS_VIOLATED, OPTIMAL
+from codegen.model.trajectory import BEST_REACHABLE, LIMITS_VIOLATED, TARGET_MET
 from codegen.model.verdict import TOLERANCES, check_plan
 from codegen.reference import ERROR_SLACK_ABS, ERROR_SLACK_REL, ReferenceSolver
 from conftest import DEMO_STATE
@@ -55,7 +55,7 @@ def test_a_plan_flown_as_documented_lands_where_it_says(ref, demo_vehicle):
     # plan's nodes within 1e-6 of the scaling length, its masses within
     # 1e-6 relative (they agree because the relaxation is tight).
     plan = ref.solve(*DEMO_STATE, time_of_flight_s=40.0)
-    assert plan.status == OPTIMAL
+    assert plan.status == TARGET_MET
     flown = fly_as_documented(demo_vehicle, plan)
     length = Scaling.for_vehicle(demo_vehicle).length_m
     assert np.max(np.abs(flown[:, :3] - plan.position_m)) <= 1e-6 * length
@@ -77,7 +77,7 @@ def test_a_plan_flown_as_documented_lands_where_it_says(ref, demo_vehicle):
 
 def test_the_reference_plan_meets_every_real_constraint(ref, demo_vehicle):
     plan = ref.solve(*DEMO_STATE)
-    assert plan.status == OPTIMAL and plan.verdict["flyable"]
+    assert plan.status == TARGET_MET and plan.verdict["flyable"]
     tol = TOLERANCES["double"]
     v = plan.verdict["violations"]
     assert v["tightness_gap"] <= tol["tightness_rel"]
@@ -114,7 +114,7 @@ def test_rocket_equation_bounds_are_necessary_conditions(ref, demo_vehicle):
     reach = reach_bracket(demo_vehicle, vel, mass, lo, hi)
     assert lo < reach[0] < reach[1] < hi
     for t in (reach[0] * 0.9, reach[1] * 1.02):
-        assert ref.solve_mode("target", pos, vel, mass, t).status == "infeasible"
+        assert ref.solve_mode("target", pos, vel, mass, t).status == "unreachable"
 
 
 def test_a_non_tight_best_reachable_plan_is_recovered_with_more_error(ref, demo_vehicle):
@@ -125,7 +125,7 @@ def test_a_non_tight_best_reachable_plan_is_recovered_with_more_error(ref, demo_
     # further from the target.
     pos, vel, mass = DEMO_STATE
     first = ref.solve_mode("least_error", pos, vel, mass, 33.0)
-    assert first.status == OPTIMAL
+    assert first.status == TARGET_MET
 
     def stage2(slack):
         tr = ref.solve_mode("fuel_at_error", pos, vel, mass, 33.0,
@@ -136,7 +136,7 @@ def test_a_non_tight_best_reachable_plan_is_recovered_with_more_error(ref, demo_
     _, v_small = stage2(ERROR_SLACK_REL[0])
     assert "tightness_gap" in v_small.failed()
     plan = ref.solve(pos, vel, mass, time_of_flight_s=33.0)
-    assert plan.status == LEAST_MISS and plan.verdict["flyable"]
+    assert plan.status == BEST_REACHABLE and plan.verdict["flyable"]
     assert first.terminal_error < plan.terminal_error <= first.terminal_error * 1.31 + 1e-3
 
 
@@ -146,7 +146,7 @@ def test_the_least_error_plan_lands_where_it_predicts(ref, demo_vehicle):
     # scaling length of where the controls take the vehicle.
     pos, vel, mass = DEMO_STATE
     plan = ref.solve(pos, vel, mass, time_of_flight_s=30.0)
-    assert plan.status == LEAST_MISS and plan.terminal_error > 1.0
+    assert plan.status == BEST_REACHABLE and plan.terminal_error > 1.0
     flown = fly_as_documented(demo_vehicle, plan)
     length = Scaling.for_vehicle(demo_vehicle).length_m
     assert np.linalg.norm(flown[-1, :3] - plan.position_m[-1]) <= 1e-6 * length

@@ -14,7 +14,7 @@ import pytest
 
 from codegen.bind import load_solver
 from codegen.emit import generate
-from codegen.model.trajectory import LEAST_MISS, OPTIMAL, SOLVED
+from codegen.model.trajectory import BEST_REACHABLE, TARGET_MET, SOLVED
 from codegen.reference import ReferenceSolver
 from codegen.verify.check import draw_cases, judge
 from conftest import DEMO_STATE
@@ -70,7 +70,7 @@ def test_a_perturbed_replan_near_touchdown_is_flyable(gen, demo_vehicle, to_go_s
     # return a plan (target met, or the best reachable one with its predicted
     # error), and the plan must meet the real constraints when judged here.
     plan = ReferenceSolver(demo_vehicle, N).solve(*DEMO_STATE)
-    assert plan.status == OPTIMAL
+    assert plan.status == TARGET_MET
     dt = plan.time_of_flight_s / N
     k = N - int(round(to_go_s / dt))
     pos = np.array(plan.position_m[k]) + [0.0, 0.0, 0.5]
@@ -81,7 +81,7 @@ def test_a_perturbed_replan_near_touchdown_is_flyable(gen, demo_vehicle, to_go_s
     assert tr.status in SOLVED, (tr.status, tr.message)
     v = judge(demo_vehicle, tr)
     assert v is not None and v.flyable, v.violations
-    if tr.status == LEAST_MISS:
+    if tr.status == BEST_REACHABLE:
         predicted = np.linalg.norm(np.array(tr.position_m[-1]) - np.array(tr.target_m))
         assert np.allclose(tr.terminal_position_error_m,
                            np.array(tr.position_m[-1]) - np.array(tr.target_m), atol=1e-9)

@@ -70,7 +70,7 @@ def test_builds_standalone_with_make_and_cmake(ecos_tree, tmp_path):
     assert r.returncode == 0, r.stderr[-3000:]
     assert "-Wall -Wextra -Werror" in r.stdout
     r = subprocess.run(["./build/pdg_plan_once"], cwd=build, capture_output=True, text=True)
-    assert r.returncode == 0 and "status optimal" in r.stdout
+    assert r.returncode == 0 and "status target_met" in r.stdout
     if shutil.which("cmake"):
         r = subprocess.run(["cmake", "-S", ".", "-B", "build-cmake"], cwd=build, capture_output=True,
                            text=True)
@@ -86,7 +86,7 @@ def test_agrees_with_reference_fixed_and_searched(ecos_solver):
     for tof in (38.0, 50.0, None):
         g = ecos_solver.solve(*DEMO_STATE, time_of_flight_s=tof)
         r = ref.solve(*DEMO_STATE, time_of_flight_s=tof)
-        assert g.status == r.status == "optimal"
+        assert g.status == r.status == "target_met"
         # Brent's parabolic steps use the probes' costs, which two solvers
         # give alike only to their tolerances: the searched times agree to
         # far below the search's tolerance, not bit for bit.
@@ -104,9 +104,9 @@ def test_infeasible_is_never_optimal(ecos_solver):
     ref = ReferenceSolver(ecos_solver.vehicle, N_ECOS)
     g = ecos_solver.solve(*DEMO_STATE, time_of_flight_s=6.0, fallback=False)
     r = ref.solve(*DEMO_STATE, time_of_flight_s=6.0, fallback=False)
-    assert g.status == r.status == "infeasible" and g.solves == r.solves == 0
-    assert ecos_solver.solve(*DEMO_STATE, time_of_flight_s=6.0).status != "optimal"
-    assert ref.solve(*DEMO_STATE, time_of_flight_s=6.0).status != "optimal"
+    assert g.status == r.status == "unreachable" and g.solves == r.solves == 0
+    assert ecos_solver.solve(*DEMO_STATE, time_of_flight_s=6.0).status != "target_met"
+    assert ref.solve(*DEMO_STATE, time_of_flight_s=6.0).status != "target_met"
 
 
 @pytest.mark.parametrize("pos,vel,mass,tof", [
@@ -129,9 +129,9 @@ def test_bad_input_through_c_api_leaves_plan_untouched(ecos_solver, pos, vel, ma
                                   "time_of_flight_s": tof, "target_m": [0, 0, 0]})
     work = ffi.new("pdg_workspace *")
     code = lib.pdg_plan_descent(work, inp, ffi.NULL, plan)
-    assert code == lib.PDG_BAD_INPUT
+    assert code == lib.PDG_INPUT_REFUSED
     assert bytes(ffi.buffer(plan)) == before
-    assert s.solve(pos, vel, mass, tof).status == "bad_input"
+    assert s.solve(pos, vel, mass, tof).status == "input_refused"
 
 
 def test_bad_settings_refused(ecos_solver):
@@ -142,7 +142,7 @@ def test_bad_settings_refused(ecos_solver):
     inp = ffi.new("pdg_input *", {"position_m": DEMO_STATE[0], "velocity_mps": DEMO_STATE[1],
                                   "mass_kg": DEMO_STATE[2], "time_of_flight_s": 40.0})
     assert lib.pdg_plan_descent(ffi.new("pdg_workspace *"), inp, settings,
-                                ffi.new("pdg_plan *")) == lib.PDG_BAD_INPUT
+                                ffi.new("pdg_plan *")) == lib.PDG_INPUT_REFUSED
 
 
 def test_edited_tree_is_refused(ecos_tree, tmp_path):
@@ -168,7 +168,7 @@ def test_custom_c_name(tmp_path):
     assert (out / "include" / "lnd_guidance.h").exists()
     assert (out / "app" / "lnd_plan_once.c").exists()
     assert read_manifest(out)["c_name"] == "lnd"
-    assert s.solve(*DEMO_STATE, time_of_flight_s=40.0).status == "optimal"
+    assert s.solve(*DEMO_STATE, time_of_flight_s=40.0).status == "target_met"
 
 
 def test_refuses_to_overwrite_foreign_directory(tmp_path):
@@ -197,11 +197,11 @@ def test_qoco_backend_small_horizon(tmp_path):
     ref = ReferenceSolver(s.vehicle, N_QOCO)
     g = s.solve(*DEMO_STATE, time_of_flight_s=40.0)
     r = ref.solve(*DEMO_STATE, time_of_flight_s=40.0)
-    assert g.status == r.status == "optimal"
+    assert g.status == r.status == "target_met"
     assert g.objective == pytest.approx(r.objective, rel=1e-5)
     # QOCO has no infeasibility certificate: it may say iteration limit or
     # numerical trouble, but must never call an infeasible instance optimal.
-    assert s.solve(*DEMO_STATE, time_of_flight_s=6.0).status != "optimal"
+    assert s.solve(*DEMO_STATE, time_of_flight_s=6.0).status != "target_met"
 
 
 # -- the native backend (the default) ------------------------------------------
@@ -241,16 +241,16 @@ def test_native_agrees_and_workspaces_are_independent(native_tree):
                                   "velocity_mps": [-30.0, 5.0, -50.0], "mass_kg": 1880.0,
                                   "time_of_flight_s": 45.0})
     # Interleave: a, b, a again; a's answer must not depend on b's solve.
-    assert lib.pdg_plan_descent(a, ina, ffi.NULL, pa) == lib.PDG_OPTIMAL
+    assert lib.pdg_plan_descent(a, ina, ffi.NULL, pa) == lib.PDG_TARGET_MET
     first = bytes(ffi.buffer(pa))
-    assert lib.pdg_plan_descent(b, inb, ffi.NULL, pb) == lib.PDG_OPTIMAL
-    assert lib.pdg_plan_descent(a, ina, ffi.NULL, pa) == lib.PDG_OPTIMAL
+    assert lib.pdg_plan_descent(b, inb, ffi.NULL, pb) == lib.PDG_TARGET_MET
+    assert lib.pdg_plan_descent(a, ina, ffi.NULL, pa) == lib.PDG_TARGET_MET
     assert bytes(ffi.buffer(pa)) == first
     r = ref.solve(*DEMO_STATE, time_of_flight_s=40.0)
     assert pa.objective == pytest.approx(r.objective, rel=1e-6)
     g = s.solve(*DEMO_STATE)
     r = ref.solve(*DEMO_STATE, fallback=False)
-    assert g.status == r.status == "optimal"
+    assert g.status == r.status == "target_met"
     assert g.fuel_kg == pytest.approx(r.fuel_kg, rel=1e-6)
 
 
@@ -267,5 +267,5 @@ def test_native_retries_a_failed_factorisation(tmp_path):
              [-46.983398624834024, -9.779766779117743, -32.38581294087268], 1856.2910426344695)
     g = s.solve(*state, time_of_flight_s=56.79737099774833)
     r = ReferenceSolver(s.vehicle, 50).solve(*state, time_of_flight_s=56.79737099774833)
-    assert g.status == r.status == "optimal"
+    assert g.status == r.status == "target_met"
     assert g.objective == pytest.approx(r.objective, rel=1e-6)

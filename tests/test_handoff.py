@@ -217,12 +217,12 @@ def test_vectors_cover_the_envelope_and_the_refusals(built):
     src = (built["pkg"] / "test" / "pdg_vectors.c").read_text()
     kinds = re.findall(r'^\s+"[^"]+", "([a-z_]+)", "(reference|contract)",', src, re.M)
     assert len(kinds) == r["vectors"]
-    assert {k for k, _ in kinds} == {"middle", "inside", "edge", "outside", "infeasible",
-                                    "bad_input", "contract"}
+    assert {k for k, _ in kinds} == {"middle", "inside", "edge", "outside", "unreachable",
+                                    "input_refused", "contract"}
     hdr = (built["pkg"] / "test" / "pdg_vectors.h").read_text()
     assert f"#define PDG_TV_COUNT {r['vectors']}" in hdr
-    statuses = re.findall(r"PDG_(OPTIMAL|INFEASIBLE|BAD_INPUT|ITERATION_LIMIT),", src)
-    assert {"OPTIMAL", "INFEASIBLE", "BAD_INPUT", "ITERATION_LIMIT"} <= set(statuses)
+    statuses = re.findall(r"PDG_(TARGET_MET|UNREACHABLE|INPUT_REFUSED|ITERATIONS_EXHAUSTED),", src)
+    assert {"TARGET_MET", "UNREACHABLE", "INPUT_REFUSED", "ITERATIONS_EXHAUSTED"} <= set(statuses)
     # Tolerances stated in the header are the project's check tolerances.
     from codegen.verify.check import TOLERANCES
     assert f"PDG_TV_FUEL_REL_FIXED {TOLERANCES['double']['objective_rel']!r}" in hdr
@@ -248,7 +248,7 @@ def test_runner_fails_on_a_wrong_expected_output(built, tmp_path):
     path = pkg / "test" / "pdg_vectors.c"
     src = path.read_text()
     # The first fixed-tof vector's expected fuel, +0.1 %.
-    m = re.search(r'"middle-fixed", .*?PDG_OPTIMAL, ([^,]+), ([^,]+),', src, re.S)
+    m = re.search(r'"middle-fixed", .*?PDG_TARGET_MET, ([^,]+), ([^,]+),', src, re.S)
     fuel = float(m.group(2))
     bad = src[:m.start(2)] + repr(fuel * 1.001) + src[m.end(2):]
     path.write_text(bad)
@@ -257,11 +257,11 @@ def test_runner_fails_on_a_wrong_expected_output(built, tmp_path):
     assert re.search(r"^FAIL +\d+ middle-fixed .*fuel", out, re.M), out
     assert "failed 1" in out
     # An expected status flipped: the searched middle vector says infeasible.
-    m = re.search(r'"middle-searched", .*?(PDG_OPTIMAL)', src, re.S)
-    path.write_text(src[:m.start(1)] + "PDG_INFEASIBLE" + src[m.end(1):])
+    m = re.search(r'"middle-searched", .*?(PDG_TARGET_MET)', src, re.S)
+    path.write_text(src[:m.start(1)] + "PDG_UNREACHABLE" + src[m.end(1):])
     code, out = make(pkg, "test")
-    assert code != 0 and re.search(r"^FAIL +\d+ middle-searched .*status optimal, expected "
-                                   r"infeasible", out, re.M), out
+    assert code != 0 and re.search(r"^FAIL +\d+ middle-searched .*status target_met, expected "
+                                   r"unreachable", out, re.M), out
     # One expected position moved by 1 m (tolerance 0.2 m for this vehicle).
     m = re.search(r"static const double position_1\[\d+\]\[3\] = \{\n    \{ ([^,]+),", src)
     x = float(m.group(1))
@@ -462,7 +462,7 @@ def test_expected_outputs_in_the_c_data_are_the_reference_answers(built, demo_ve
     from codegen.reference import ReferenceSolver
     src = (built["pkg"] / "test" / "pdg_vectors.c").read_text()
     m = re.search(r'"middle-fixed", "middle", "reference",\s*\{ \{ ([^}]+) \},\s*\{ ([^}]+) \},'
-                  r'\s*([^,]+), ([^,]+),.*?PDG_OPTIMAL, ([^,]+), ([^,]+), ([^,]+),', src, re.S)
+                  r'\s*([^,]+), ([^,]+),.*?PDG_TARGET_MET, ([^,]+), ([^,]+), ([^,]+),', src, re.S)
     assert m, "middle-fixed vector not found"
     pos = [float(x) for x in m.group(1).split(",")]
     vel = [float(x) for x in m.group(2).split(",")]
@@ -472,6 +472,6 @@ def test_expected_outputs_in_the_c_data_are_the_reference_answers(built, demo_ve
     env = demo_vehicle.envelope
     assert pos == [(a + b) / 2.0 for a, b in zip(env.position_min_m, env.position_max_m)]
     r = ReferenceSolver(demo_vehicle, HORIZON).solve(pos, vel, mass, tof, fallback=False)
-    assert r.status == "optimal"
+    assert r.status == "target_met"
     assert abs(r.fuel_kg - exp_fuel) <= 1e-12 * exp_fuel
     assert abs(r.objective - exp_obj) <= 1e-12 * abs(exp_obj)

@@ -12,7 +12,7 @@ from scipy.integrate import solve_ivp
 from codegen.model.canonical import extract, flat_parameters
 from codegen.model.problem import MODES, DescentProblem, time_of_flight_bracket
 from codegen.reference import ReferenceSolver
-from codegen.model.trajectory import BAD_INPUT, INFEASIBLE, LEAST_MISS, LIMITS_VIOLATED, OPTIMAL
+from codegen.model.trajectory import INPUT_REFUSED, UNREACHABLE, BEST_REACHABLE, LIMITS_VIOLATED, TARGET_MET
 from codegen.model.vehicle import G0_MPS2, parse_vehicle
 from conftest import DEMO_STATE, paper_example_vehicle
 
@@ -41,7 +41,7 @@ def test_relaxation_is_tight(demo_plan):
     # recall it; the number is recalled, not checked); with the thrust
     # pointing limit of the demo vehicle, Açıkmeşe, Carson & Blackmore 2013,
     # IEEE Trans. Control Systems Technology 21(6).
-    assert demo_plan.status == OPTIMAL
+    assert demo_plan.status == TARGET_MET
     assert demo_plan.tightness_gap < 1e-6
 
 
@@ -157,7 +157,7 @@ def test_bracket_contains_optimum_and_fuel_is_unimodal(demo_vehicle):
     fuels = []
     for tof in np.linspace(plan.time_of_flight_s - 4.0, plan.time_of_flight_s + 60.0, 17):
         tr = rs.solve_mode("target", *DEMO_STATE, tof)
-        if tr.status == OPTIMAL:
+        if tr.status == TARGET_MET:
             fuels.append(tr.fuel_kg)
     assert len(fuels) >= 10
     d = np.sign(np.diff(fuels))
@@ -179,7 +179,7 @@ def test_paper_example_fuel_and_time_of_flight():
     # comparison within a few percent, not to the digits.
     v = paper_example_vehicle()
     plan = ReferenceSolver(v, 50).solve([2000.0, 0.0, 1500.0], [100.0, 0.0, -75.0], 1905.0)
-    assert plan.status == OPTIMAL
+    assert plan.status == TARGET_MET
     assert plan.fuel_kg == pytest.approx(399.5, rel=0.02)
     assert 75.0 <= plan.time_of_flight_s <= 81.0
     assert plan.tightness_gap < 1e-6
@@ -258,7 +258,7 @@ def test_vertical_descent_is_min_then_max_thrust_and_the_loose_relaxation_is_cau
     assert plan.fuel_kg == pytest.approx(fuel, rel=0.01)
 
 
-def test_out_of_reach_target_gives_least_miss(demo_vehicle):
+def test_out_of_reach_target_gives_the_best_reachable_plan(demo_vehicle):
     # Two-stage least terminal error, then least fuel at that error
     # (Blackmore, Açıkmeşe & Scharf 2010, J. Guidance, Control, and Dynamics
     # 33(4): minimum landing error, then minimum fuel). The plan still obeys
@@ -268,9 +268,9 @@ def test_out_of_reach_target_gives_least_miss(demo_vehicle):
     # (tan 5 deg x 15 km = 1.31 km), out of the fuel's reach.
     rs = ReferenceSolver(demo_vehicle, 15)
     state = ([15000.0, 0.0, 1500.0], [-50.0, 0.0, -40.0], 1900.0)
-    assert rs.solve(*state, fallback=False).status == INFEASIBLE
+    assert rs.solve(*state, fallback=False).status == UNREACHABLE
     plan = rs.solve(*state)
-    assert plan.status == LEAST_MISS
+    assert plan.status == BEST_REACHABLE
     assert math.isfinite(plan.landing_miss_m) and plan.landing_miss_m > 100.0
     assert plan.landing_miss_m == pytest.approx(np.linalg.norm(plan.position_m[-1, :2]),
                                                rel=1e-9)
@@ -286,7 +286,7 @@ def test_nan_state_refused_before_solve(demo_vehicle, monkeypatch):
                  ([1500, 0, 1500], [-50, 0, -40], 1000.0),
                  ([1500, 0, 1500], [-50, 0, math.inf], 1900.0)):
         tr = rs.solve(*args)
-        assert tr.status == BAD_INPUT and tr.message
+        assert tr.status == INPUT_REFUSED and tr.message
     tr = rs.solve(*DEMO_STATE, time_of_flight_s=-3.0)
-    assert tr.status == BAD_INPUT and "time_of_flight_s" in tr.message
+    assert tr.status == INPUT_REFUSED and "time_of_flight_s" in tr.message
     assert called == []

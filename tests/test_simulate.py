@@ -229,7 +229,7 @@ class _FailingReplans:
         traj = self.inner.solve(position_m, velocity_mps, mass_kg, time_of_flight_s, target_m,
                                 **options)
         if time_of_flight_s is not None:
-            traj.status = "numerical_trouble"
+            traj.status = "solver_breakdown"
         return traj
 
 
@@ -239,7 +239,7 @@ def test_failed_replans_follow_the_last_good_plan(solver):
     open_loop = fly(solver, ErrorModel(), dataclasses.replace(s, rate_hz=0.0), seed=3, index=0)
     assert rec["solves"] > 20
     assert rec["failures"] == rec["solves"] - 1
-    assert rec["failure_statuses"] == {"numerical_trouble": rec["solves"] - 1}
+    assert rec["failure_statuses"] == {"solver_breakdown": rec["solves"] - 1}
     # Following the first plan throughout is the open-loop flight, exactly.
     assert rec["guided_end_position_m"] is not None
     assert rec["guided_end_position_m"] == open_loop["guided_end_position_m"]

@@ -21,7 +21,7 @@ from codegen.emit import generate
 from codegen.errors import InputError
 from codegen.model.problem import Scaling, reach_bracket, time_of_flight_bracket
 from codegen.reference import ReferenceSolver
-from codegen.model.trajectory import INFEASIBLE, ITERATION_LIMIT, NUMERICAL_TROUBLE, Trajectory
+from codegen.model.trajectory import UNREACHABLE, ITERATIONS_EXHAUSTED, SOLVER_BREAKDOWN, Trajectory
 from conftest import DEMO_STATE, DEMO_VEHICLE
 
 TOL = tofsearch.TOLERANCE_S
@@ -63,10 +63,10 @@ class Synthetic:
             return self.fail_as, math.nan, ("failed", t)
         if mode == "target":
             if not self.win[0] <= t <= self.win[1]:
-                return tofsearch.INFEASIBLE, math.inf, ("infeasible", t)
+                return tofsearch.INFEASIBLE, math.inf, ("unreachable", t)
             return tofsearch.SOLVED, self.cost(t), ("solved", t)
         if not self.merit_win[0] <= t <= self.merit_win[1]:
-            return tofsearch.INFEASIBLE, math.inf, ("infeasible", t)
+            return tofsearch.INFEASIBLE, math.inf, ("unreachable", t)
         return tofsearch.SOLVED, self.merit(t), ("merit", t)
 
     def times(self, mode=None):
@@ -122,7 +122,7 @@ def test_the_search_reports_nothing_feasible():
     ev = Synthetic(win=(5.0, 6.0), merit_win=(500.0, 600.0))
     res = tofsearch.search(ev, 1.0, 2.0, reach=(1.0, 2.0))
     assert res.t_best is None and math.isinf(res.cost_best)
-    assert res.payload_best == ("infeasible", ev.log[-1][0])
+    assert res.payload_best == ("unreachable", ev.log[-1][0])
     # Proven infeasible probes are never retried: two grids and nothing else.
     assert res.evaluations == 2 * GRID
 
@@ -212,23 +212,23 @@ def test_bad_arguments_name_the_field():
         tofsearch.search(Synthetic(), 1.0, 2.0, reach=(0.5, 2.0))
 
 
-@pytest.mark.parametrize("status,retried", [(NUMERICAL_TROUBLE, True), (ITERATION_LIMIT, True),
-                                            (INFEASIBLE, False)])
+@pytest.mark.parametrize("status,retried", [(SOLVER_BREAKDOWN, True), (ITERATIONS_EXHAUSTED, True),
+                                            (UNREACHABLE, False)])
 def test_reference_retries_a_failed_probe_but_not_an_infeasible_one(demo_vehicle, monkeypatch,
                                                                     status, retried):
     # The reference says "failed" for numerical trouble and the iteration
-    # limit, "infeasible" only for a proven infeasible status.
+    # limit, "unreachable" only for a proven infeasible status.
     rs = ReferenceSolver(demo_vehicle, 10)
     calls = []
 
     def fake(mode, position_m, velocity_mps, mass_kg, tof, *args, **kwargs):
         calls.append((tof, mode))
-        return Trajectory(status=status if len(calls) == 1 else INFEASIBLE, solver="fake",
+        return Trajectory(status=status if len(calls) == 1 else UNREACHABLE, solver="fake",
                           horizon=10, time_of_flight_s=tof)
 
     monkeypatch.setattr(rs, "solve_mode", fake)
     tr = rs.solve(*DEMO_STATE, fallback=False)
-    assert tr.status == INFEASIBLE
+    assert tr.status == UNREACHABLE
     lo, hi = time_of_flight_bracket(demo_vehicle, *DEMO_STATE)
     reach = reach_bracket(demo_vehicle, DEMO_STATE[1], DEMO_STATE[2], max(lo, 1e-3 * hi), hi)
     g = grid(*reach)

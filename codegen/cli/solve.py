@@ -6,7 +6,7 @@ import sys
 
 from codegen.cli.common import parse_state, parse_vector3, positive_int, print_table
 from codegen.errors import InputError
-from codegen.model.trajectory import LEAST_MISS, LIMITS_VIOLATED
+from codegen.model.trajectory import BEST_REACHABLE, LIMITS_VIOLATED
 
 #: The horizon when --horizon is not given.
 DEFAULT_HORIZON = 50
@@ -22,7 +22,7 @@ def register(sub) -> None:
     s.add_argument("--solver-dir", default=None,
                    help="use the generated solver in this tree instead of the reference")
     s.add_argument("--no-fallback", action="store_true",
-                   help="report 'infeasible' when the target is out of reach instead of the "
+                   help="report 'unreachable' when the target is out of reach instead of the "
                         "best reachable plan (least terminal error, then least fuel)")
     s.add_argument("--reserve-throttle", type=float, default=None, metavar="FRACTION",
                    help="with --tof: the highest throttle the plan may use when the target is "
@@ -54,9 +54,9 @@ def run(args) -> int:
         solver = ReferenceSolver(vehicle, horizon)
     traj = solver.solve(pos, vel, mass, args.tof, target, fallback=not args.no_fallback,
                         reserve_throttle_max=args.reserve_throttle)
-    if traj.status == "bad_input":
+    if traj.status == "input_refused":
         raise InputError("input", traj.message, "refused by the solver")
-    if traj.status == LEAST_MISS:
+    if traj.status == BEST_REACHABLE:
         print(f"pdgc: warning: {traj.message}", file=sys.stderr)
     if args.json:
         print(traj.to_json())

@@ -9,22 +9,30 @@ from dataclasses import dataclass, field
 import numpy as np
 
 #: Statuses, shared by the reference and every generated solver.
-OPTIMAL = "optimal"
-INFEASIBLE = "infeasible"
-ITERATION_LIMIT = "iteration_limit"
-NUMERICAL_TROUBLE = "numerical_trouble"
-BAD_INPUT = "bad_input"
+#: Statuses of a guidance call (the C's {c}_status, in the same order).
+#: The plan meets the target, least fuel, and passes the real-constraint
+#: checks. (Also the status of one converged solve_mode solve, in any mode.)
+TARGET_MET = "target_met"
+#: No plan exists: the solver certified infeasibility, or the rocket
+#: equation rules the target out and no best reachable plan was allowed.
+UNREACHABLE = "unreachable"
+#: The per-solve cap or the call's iteration budget was reached: no plan.
+ITERATIONS_EXHAUSTED = "iterations_exhausted"
+#: The solver broke down numerically: no plan.
+SOLVER_BREAKDOWN = "solver_breakdown"
+#: The input was refused before any solve; nothing was written.
+INPUT_REFUSED = "input_refused"
 #: The target was out of reach; the answer is the plan of least terminal
 #: error, then least fuel at that error (two-stage, Blackmore et al. 2010),
 #: with its predicted terminal error.
-LEAST_MISS = "least_miss"
+BEST_REACHABLE = "best_reachable"
 #: A solve converged, but its plan breaks a real (non-convex) constraint
 #: beyond tolerance (codegen/model/verdict.py); the plan and the violation
 #: are returned so that the caller sees them, and it must not be flown.
 LIMITS_VIOLATED = "limits_violated"
-STATUSES = (OPTIMAL, INFEASIBLE, ITERATION_LIMIT, NUMERICAL_TROUBLE, BAD_INPUT, LEAST_MISS,
+STATUSES = (TARGET_MET, UNREACHABLE, ITERATIONS_EXHAUSTED, SOLVER_BREAKDOWN, INPUT_REFUSED, BEST_REACHABLE,
             LIMITS_VIOLATED)
-SOLVED = (OPTIMAL, LEAST_MISS)
+SOLVED = (TARGET_MET, BEST_REACHABLE)
 
 
 @dataclass

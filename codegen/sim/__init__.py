@@ -47,7 +47,7 @@ Guidance loop
     with the time to go t_end - t (horizon N fixed, so the intervals shrink).
     A new plan takes effect ``latency_s`` after its navigation sample and is
     indexed from that sample's time. A solve that fails (any status but
-    optimal / least_miss) changes nothing: the last good plan is followed.
+    target_met / best_reachable) changes nothing: the last good plan is followed.
     The mass handed to the solver is clamped into (dry, wet] (an estimate
     above the wet mass is a known impossibility; flight software would clamp).
     ``rate_hz = 0`` flies the first plan open loop.

@@ -8,7 +8,7 @@ from dataclasses import asdict
 import numpy as np
 
 from codegen.errors import InputError
-from codegen.model.trajectory import BAD_INPUT, LEAST_MISS
+from codegen.model.trajectory import INPUT_REFUSED, BEST_REACHABLE
 from codegen.sim.error_model import ErrorModel
 from codegen.sim.plans import EVENT_EPS_S, _Descent, _Plan
 from codegen.sim.settings import Settings, draw_run
@@ -109,7 +109,7 @@ class _Run:
             traj = self.solver.solve(r, v, m, tof, self.aim, **reserve)
             status, ok = traj.status, traj.solved
         except InputError:                 # a binding that raises on bad input
-            traj, status, ok = None, BAD_INPUT, False
+            traj, status, ok = None, INPUT_REFUSED, False
         stats["solves"] += 1
         if traj is not None:
             stats["worst_call_iterations"] = max(stats["worst_call_iterations"],
@@ -123,7 +123,7 @@ class _Run:
             if tof is not None:
                 stats["failure_time_to_go_s"].append(round(float(tof), 4))
             return None
-        if traj.status == LEAST_MISS:
+        if traj.status == BEST_REACHABLE:
             stats["best_reachable_plans"] += 1
         limit = traj.throttle_limit
         if math.isfinite(limit):

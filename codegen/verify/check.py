@@ -6,7 +6,7 @@ times of flight drawn over the lower part of the bracket (so that many are
 too short to be feasible) and every K-th case searching the time of flight.
 Both sides run the same sequence of solves (the target; when it is out of
 reach, the best reachable plan), so they must say the same thing. Every plan
-the generated solver hands out (optimal or least_miss) is also judged, in
+the generated solver hands out (target_met or best_reachable) is also judged, in
 Python and independently of the C's own checks, against the real
 constraints (codegen.model.verdict.check_plan): two solvers can share one
 mistake, the constraints cannot.
@@ -23,7 +23,7 @@ import numpy as np
 from codegen.model.problem import time_of_flight_bracket
 from codegen.reference import ReferenceSolver
 from codegen.model.policy import ERROR_SLACK_ABS, ERROR_SLACK_REL
-from codegen.model.trajectory import LEAST_MISS, OPTIMAL, SOLVED
+from codegen.model.trajectory import BEST_REACHABLE, TARGET_MET, SOLVED
 from codegen.model.verdict import check_plan
 
 #: Stated tolerances by precision: relative objective error (fixed time of
@@ -107,7 +107,7 @@ def judge(vehicle, traj, precision: str = "double"):
     limit = traj.throttle_limit if math.isfinite(traj.throttle_limit) else None
     return check_plan(vehicle, traj.time_of_flight_s, traj.position_m, traj.velocity_mps,
                       traj.mass_kg, traj.accel_mps2, traj.accel_slack_mps2, traj.target_m,
-                      traj.velocity_target_mps, meets_target=traj.status == OPTIMAL,
+                      traj.velocity_target_mps, meets_target=traj.status == TARGET_MET,
                       precision=precision, throttle_max=limit)
 
 
@@ -118,7 +118,7 @@ def compare(gen, ref, case: Case, tol: dict, vehicle, length_m: float,
     r = ref.solve(*args)
     res = CaseResult(case, g.status, r.status, iterations_max=g.iterations_max,
                      solve_time_s=g.solve_time_s)
-    if g.status in (OPTIMAL, LEAST_MISS):
+    if g.status in (TARGET_MET, BEST_REACHABLE):
         v = judge(vehicle, g, precision)
         if v is not None and not v.flyable:
             res.failures.append(f"{g.status} plan breaks {v.worst} "
@@ -126,7 +126,7 @@ def compare(gen, ref, case: Case, tol: dict, vehicle, length_m: float,
     if g.status != r.status:
         res.failures.append(f"status {g.status} vs reference {r.status}")
         return res
-    if g.status == LEAST_MISS:
+    if g.status == BEST_REACHABLE:
         # Best reachable plans: the least terminal error, then the least fuel
         # with that error relaxed by at most the largest slack
         # (codegen.model.policy); the two may settle anywhere in that band.
@@ -135,7 +135,7 @@ def compare(gen, ref, case: Case, tol: dict, vehicle, length_m: float,
             res.failures.append(f"terminal error {g.terminal_error:.4g} vs reference "
                                 f"{r.terminal_error:.4g} (band {band:.3g})")
         return res
-    if g.status != OPTIMAL:
+    if g.status != TARGET_MET:
         return res
     res.fuel_rel = abs(g.fuel_kg - r.fuel_kg) / max(abs(r.fuel_kg), 1e-9)
     if case.time_of_flight_s is None:

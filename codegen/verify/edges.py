@@ -27,7 +27,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from codegen.model.problem import time_of_flight_bracket
-from codegen.model.trajectory import INFEASIBLE, SOLVED
+from codegen.model.trajectory import UNREACHABLE, SOLVED
 
 #: Offsets from each edge, in s (both sides).
 OFFSETS_S = (1e-7, 1e-6, 1e-5, 1e-4, 1e-3, 1e-2, 0.05, 0.1, 0.2, 0.5)
@@ -58,9 +58,9 @@ class EdgeSweep:
 
     def summary(self) -> dict:
         inside = [s for s in self.solves if s.side == "inside"]
-        failed = {"generated": sum(s.generated not in SOLVED and s.generated != INFEASIBLE
+        failed = {"generated": sum(s.generated not in SOLVED and s.generated != UNREACHABLE
                                    for s in inside),
-                  "reference": sum(s.reference not in SOLVED and s.reference != INFEASIBLE
+                  "reference": sum(s.reference not in SOLVED and s.reference != UNREACHABLE
                                    for s in inside)}
         false_flyable = {
             "generated": sum(s.generated in SOLVED and s.generated_flyable is False
@@ -87,7 +87,7 @@ def find_edges(reference, position_m, velocity_mps, mass_kg):
 
     def meets(t):
         return reference.solve_mode("target", position_m, velocity_mps, mass_kg, t).status \
-            == "optimal"
+            == "target_met"
 
     ts = np.linspace(lo, hi, SCAN_POINTS)
     ok = [meets(t) for t in ts]

@@ -30,8 +30,8 @@ from codegen.verify.check import TOLERANCES, draw_cases
 from codegen.model.problem import Scaling, time_of_flight_bracket
 from codegen.reference import ReferenceSolver
 from codegen.model.policy import ERROR_SLACK_ABS, ERROR_SLACK_REL
-from codegen.model.trajectory import (BAD_INPUT, INFEASIBLE, ITERATION_LIMIT, LEAST_MISS,
-                                      LIMITS_VIOLATED, OPTIMAL)
+from codegen.model.trajectory import (INPUT_REFUSED, UNREACHABLE, ITERATIONS_EXHAUSTED, BEST_REACHABLE,
+                                      LIMITS_VIOLATED, TARGET_MET)
 
 #: Seed of the few dispersed inside points (fixed: the vectors are the same every run).
 INSIDE_SEED = 20260
@@ -41,10 +41,10 @@ OUTSIDE_FACTORS = (1.4, 3.0)
 #: Iteration cap small enough that no descent problem converges in it.
 TINY_ITERATION_CAP = 2
 
-STATUS_CODES = {OPTIMAL: 0, INFEASIBLE: 1, ITERATION_LIMIT: 2, "numerical_trouble": 3,
-                BAD_INPUT: 4, LEAST_MISS: 5, LIMITS_VIOLATED: 6}
+STATUS_CODES = {TARGET_MET: 0, UNREACHABLE: 1, ITERATIONS_EXHAUSTED: 2, "solver_breakdown": 3,
+                INPUT_REFUSED: 4, BEST_REACHABLE: 5, LIMITS_VIOLATED: 6}
 #: Statuses whose vectors carry a plan to compare.
-WITH_PLAN = (OPTIMAL, LEAST_MISS)
+WITH_PLAN = (TARGET_MET, BEST_REACHABLE)
 
 
 @dataclass
@@ -60,11 +60,11 @@ class Vector:
     iterations_per_solve_max: int | None = None     # None: the default settings
     tof_tolerance_s: float | None = None
     null_workspace: bool = False
-    status: str = OPTIMAL
+    status: str = TARGET_MET
     expect_tof_s: float = math.nan
     fuel_kg: float = math.nan
     objective: float = math.nan
-    terminal_error: float = math.nan   # weighted terminal error (least_miss)
+    terminal_error: float = math.nan   # weighted terminal error (best_reachable)
     position: list | None = None    # (N+1) x 3 expected positions [m]
     thrust: list | None = None      # N x 3 expected thrust [N]
     note: str = ""
@@ -109,7 +109,7 @@ def _fill(vec: Vector, traj) -> Vector:
         vec.fuel_kg = float(traj.fuel_kg)
         vec.objective = float(traj.objective)
         vec.terminal_error = float(traj.terminal_error)
-    if traj.status == OPTIMAL:
+    if traj.status == TARGET_MET:
         vec.position = np.asarray(traj.position_m, float).tolist()
         vec.thrust = np.asarray(traj.thrust_n, float).tolist()
     return vec
@@ -138,7 +138,7 @@ def build_vectors(vehicle, horizon: int, progress=None) -> list:
         s = solve(Vector(f"{name}-searched", kind, "reference", list(map(float, p)),
                          list(map(float, v)), float(m), 0.0, list(map(float, target))))
         out.append(s)
-        if s.status == OPTIMAL:
+        if s.status == TARGET_MET:
             for factor in (1.0,) + tuple(also):
                 tof = s.expect_tof_s * factor
                 label = "fixed" if factor == 1.0 else f"fixed-x{factor:g}"
@@ -167,8 +167,8 @@ def build_vectors(vehicle, horizon: int, progress=None) -> list:
     t_min, t_max = time_of_flight_bracket(vehicle, mid_p, mid_v, mid_m)
     for name, tof in (("tof-too-short", 0.5 * t_min), ("tof-too-long", 1.5 * t_max)):
         say(f"reference solve: {name}")
-        out.append(solve(Vector(name, "infeasible", "reference", mid_p, mid_v, mid_m, tof)))
-    # Bad inputs: the reference refuses them too (status bad_input).
+        out.append(solve(Vector(name, "unreachable", "reference", mid_p, mid_v, mid_m, tof)))
+    # Bad inputs: the reference refuses them too (status input_refused).
     dry, wet = vehicle.mass_dry_kg, vehicle.mass_wet_kg
     bad = [
         ("mass-at-dry", dict(mass_kg=dry)),
@@ -183,18 +183,18 @@ def build_vectors(vehicle, horizon: int, progress=None) -> list:
         fields = dict(position_m=list(mid_p), velocity_mps=list(mid_v), mass_kg=mid_m,
                       time_of_flight_s=0.0, target_m=[0.0, 0.0, 0.0])
         fields.update(change)
-        vec = Vector(f"bad-{name}", "bad_input", "reference", **fields)
+        vec = Vector(f"bad-{name}", "input_refused", "reference", **fields)
         tof = None if vec.time_of_flight_s == 0.0 else vec.time_of_flight_s
         traj = ref.solve(vec.position_m, vec.velocity_mps, vec.mass_kg, tof, vec.target_m)
         out.append(_fill(vec, traj))
     # The C API's own contract: settings out of range, NULL workspace, tiny iteration cap.
-    fixed_tof = mid.expect_tof_s if mid.status == OPTIMAL else 0.5 * (t_min + t_max)
+    fixed_tof = mid.expect_tof_s if mid.status == TARGET_MET else 0.5 * (t_min + t_max)
     contract = [
-        ("settings-iterations-zero", dict(iterations_per_solve_max=0), BAD_INPUT),
-        ("settings-tolerance-zero", dict(tof_tolerance_s=0.0), BAD_INPUT),
-        ("null-workspace", dict(null_workspace=True), BAD_INPUT),
+        ("settings-iterations-zero", dict(iterations_per_solve_max=0), INPUT_REFUSED),
+        ("settings-tolerance-zero", dict(tof_tolerance_s=0.0), INPUT_REFUSED),
+        ("null-workspace", dict(null_workspace=True), INPUT_REFUSED),
         ("iteration-cap", dict(iterations_per_solve_max=TINY_ITERATION_CAP, time_of_flight_s=fixed_tof),
-         ITERATION_LIMIT),
+         ITERATIONS_EXHAUSTED),
     ]
     for name, change, status in contract:
         fields = dict(position_m=list(mid_p), velocity_mps=list(mid_v), mass_kg=mid_m,

@@ -7,7 +7,7 @@ import threading
 import time
 from dataclasses import dataclass
 
-from codegen.model.trajectory import OPTIMAL, SOLVED
+from codegen.model.trajectory import TARGET_MET, SOLVED
 from codegen.verify.dispersions import Dispersions
 from codegen.verify.envelope.solvers import open_solvers
 
@@ -90,7 +90,7 @@ def reference_reasons(ctx: CaseContext, index: int, gen: dict) -> list:
     why = []
     if ctx.reference_every > 0 and index % ctx.reference_every == 0:
         why.append("every_m")
-    if gen["status"] != OPTIMAL:
+    if gen["status"] != TARGET_MET:
         why.append("status")
     if ctx.stand_out_iterations > 0 and gen["iterations_max"] > ctx.stand_out_iterations:
         why.append("iterations")

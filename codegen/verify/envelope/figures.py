@@ -5,8 +5,8 @@ from __future__ import annotations
 import math
 
 
-STATUS_COLOURS = {"optimal": "#2a7f2a", "least_miss": "#e08a00", "infeasible": "#c02020",
-                  "iteration_limit": "#7a1fa2", "numerical_trouble": "#1f5fbf", "bad_input": "#555555"}
+STATUS_COLOURS = {"target_met": "#2a7f2a", "best_reachable": "#e08a00", "unreachable": "#c02020",
+                  "iterations_exhausted": "#7a1fa2", "solver_breakdown": "#1f5fbf", "input_refused": "#555555"}
 
 
 def figures(records, cap=None, call_bound=None) -> dict:
@@ -72,7 +72,7 @@ def figures(records, cap=None, call_bound=None) -> dict:
     up = np.array([r["inputs"]["position_m"][2] for r in records])
     fig, ax = plt.subplots(figsize=(8, 5))
     size = 12 if len(records) < 2000 else 4
-    for st in sorted(set(statuses), key=lambda s: (s != "optimal", s)):
+    for st in sorted(set(statuses), key=lambda s: (s != "target_met", s)):
         sel = statuses == st
         ax.scatter(x[sel], up[sel], s=size, c=STATUS_COLOURS.get(st, "#000"),
                    label=f"{st} ({int(sel.sum())})", alpha=0.8, linewidths=0)
@@ -84,7 +84,7 @@ def figures(records, cap=None, call_bound=None) -> dict:
     divert = np.hypot(x, y)
     fuel = np.array([g["fuel_kg"] if g["fuel_kg"] is not None else np.nan for g in gens])
     fig, ax = plt.subplots(figsize=(8, 5))
-    for st in sorted(set(statuses), key=lambda s: (s != "optimal", s)):
+    for st in sorted(set(statuses), key=lambda s: (s != "target_met", s)):
         sel = (statuses == st) & np.isfinite(fuel)
         if sel.any():
             ax.scatter(divert[sel], fuel[sel], s=size, c=STATUS_COLOURS.get(st, "#000"),

@@ -126,7 +126,7 @@ def summarise(run_dir, worst: int = WORST_CASES, write_replay_vehicles: bool = T
         "stand_out_iterations": man["stand_out_iterations"],
         "generated": {
             "status_counts": _counts(g["status"] for g in gens),
-            # Plans handed out (optimal, least_miss) that break a real
+            # Plans handed out (target_met, best_reachable) that break a real
             # constraint beyond tolerance, judged here from their own arrays.
             "plans_judged": sum(1 for g in gens if g.get("flyable") is not None),
             "plans_breaking_constraints": sum(1 for g in gens if g.get("flyable") is False),

@@ -81,12 +81,12 @@ def record_sections(manifest, vehicle, vectors, tol, checks: Checks | None, camp
         ("fuel", "searched", "relative error", _g(tol["fuel_rel_searched"])),
         ("same-tof test", "searched", "arrays compared when |dtof| <= this x tof",
          _g(tol["same_tof_rel"])),
-        ("refused input", "bad_input", "plan left untouched (sentinels unchanged)", "-"),
+        ("refused input", "input_refused", "plan left untouched (sentinels unchanged)", "-"),
     ]
     vrows = [(i, v.name, v.kind, v.source,
               "searched" if v.searched else _g(v.time_of_flight_s, 8), v.status,
-              _g(v.expect_tof_s, 8) if v.status == "optimal" else "-",
-              _g(v.fuel_kg, 10) if v.status == "optimal" else "-")
+              _g(v.expect_tof_s, 8) if v.status == "target_met" else "-",
+              _g(v.fuel_kg, 10) if v.status == "target_met" else "-")
              for i, v in enumerate(vectors)]
     sec.append({"title": "Test vectors", "blocks": [
         _text(f"{len(vectors)} vectors in `test/{prefix}_vectors.c` "
@@ -191,7 +191,7 @@ def _campaign_blocks(s: dict) -> list:
     return [_text("Summary of the envelope campaign (`pdgc envelope`) run on this tree "
                   "(its summary.json; the run's manifest names this tree's manifest hash). "
                   "Both sides run the same sequence of solves: where the target is out of "
-                  "reach, both answer `least_miss` (the best reachable plan)."),
+                  "reach, both answer `best_reachable` (the best reachable plan)."),
             _table(("item", "value"), rows)]
 
 

@@ -28,7 +28,7 @@ int main(void)
     pdg_guidance_config_init(&settings);
     status = pdg_plan_descent(&work, &input, &settings, &plan);
     printf("status %s\n", pdg_status_name(status));
-    if (status != PDG_OPTIMAL && status != PDG_LEAST_MISS) {
+    if (status != PDG_TARGET_MET && status != PDG_BEST_REACHABLE) {
         return 1;
     }
     printf("time of flight %.4f s, fuel %.4f kg, %d solves, %d iterations (max %d per solve)\n",

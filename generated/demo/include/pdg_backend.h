@@ -23,7 +23,7 @@ typedef struct {
  * Solve for the parameters `params`, with at most `iteration_cap`
  * iterations in all (a retry included). `probe` = 1 asks for the search's
  * loose tolerance, where the backend has one. Writes the objective and the
- * iteration count; returns a pdg_status value (0 optimal,
+ * iteration count; returns a pdg_status value (0 converged,
  * 1 infeasible, 2 iteration limit, 3 numerical trouble) mapped from the
  * solver's own codes.
  */

@@ -49,12 +49,12 @@
 
 /** Outcome of a plan. */
 typedef enum {
-    PDG_OPTIMAL = 0,           /**< the target met: least fuel, flyable (checked) */
-    PDG_INFEASIBLE = 1,        /**< no plan exists (solver certificate) */
-    PDG_ITERATION_LIMIT = 2,   /**< iteration cap or call budget reached: no plan */
-    PDG_NUMERICAL_TROUBLE = 3, /**< the solver failed numerically: no plan */
-    PDG_BAD_INPUT = 4,         /**< input refused before any solve; output untouched */
-    PDG_LEAST_MISS = 5,        /**< target out of reach: the flyable plan that ends
+    PDG_TARGET_MET = 0,           /**< the target met: least fuel, flyable (checked) */
+    PDG_UNREACHABLE = 1,        /**< no plan exists (solver certificate) */
+    PDG_ITERATIONS_EXHAUSTED = 2,   /**< iteration cap or call budget reached: no plan */
+    PDG_SOLVER_BREAKDOWN = 3, /**< the solver failed numerically: no plan */
+    PDG_INPUT_REFUSED = 4,         /**< input refused before any solve; output untouched */
+    PDG_BEST_REACHABLE = 5,        /**< target out of reach: the flyable plan that ends
                                              closest to it, with its predicted terminal error */
     PDG_LIMITS_VIOLATED = 6    /**< a solve converged but its plan breaks a real
                                              constraint (see violation[], worst_check): do not fly */
@@ -90,7 +90,7 @@ typedef struct {
                                       (the engine's reserve), in [throttle_max, 1]; 0: none (default 0) */
     int reserve_steps;        /**< bisection steps for the lowest limit that meets the target, 0..12 (default 4) */
     int allow_terminal_error; /**< 1: when the target cannot be met, the best reachable plan
-                                   (PDG_LEAST_MISS); 0: report INFEASIBLE (default 1) */
+                                   (PDG_BEST_REACHABLE); 0: report INFEASIBLE (default 1) */
 } pdg_guidance_config;
 
 /** The plan. Arrays by node k = 0..N (or interval k = 0..N-1). */
@@ -166,7 +166,7 @@ void pdg_guidance_config_init(pdg_guidance_config *settings);
  *
  * Inputs are validated first (finite numbers, mass in (dry, wet], time of
  * flight > 0 or exactly 0 for a search, throttle limits and settings in
- * range); on failure the function returns PDG_BAD_INPUT and leaves
+ * range); on failure the function returns PDG_INPUT_REFUSED and leaves
  * `plan` untouched.
  *
  * Fixed time of flight (a re-plan): least fuel with the target met at the

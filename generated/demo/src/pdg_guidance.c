@@ -108,12 +108,12 @@ void pdg_guidance_config_init(pdg_guidance_config *settings)
 const char *pdg_status_name(pdg_status status)
 {
     switch (status) {
-    case PDG_OPTIMAL: return "optimal";
-    case PDG_INFEASIBLE: return "infeasible";
-    case PDG_ITERATION_LIMIT: return "iteration_limit";
-    case PDG_NUMERICAL_TROUBLE: return "numerical_trouble";
-    case PDG_BAD_INPUT: return "bad_input";
-    case PDG_LEAST_MISS: return "least_miss";
+    case PDG_TARGET_MET: return "target_met";
+    case PDG_UNREACHABLE: return "unreachable";
+    case PDG_ITERATIONS_EXHAUSTED: return "iterations_exhausted";
+    case PDG_SOLVER_BREAKDOWN: return "solver_breakdown";
+    case PDG_INPUT_REFUSED: return "input_refused";
+    case PDG_BEST_REACHABLE: return "best_reachable";
     case PDG_LIMITS_VIOLATED: return "limits_violated";
     default: return "unknown";
     }
@@ -286,8 +286,8 @@ static int solve_once(pdg_workspace *w, const pdg_input *in, double tof_s,
         }
         if (cap < 1) {
             w->budget_exhausted = 1;
-            w->last_status = PDG_ITERATION_LIMIT;
-            return PDG_ITERATION_LIMIT;
+            w->last_status = PDG_ITERATIONS_EXHAUSTED;
+            return PDG_ITERATIONS_EXHAUSTED;
         }
     }
     compute_params(in, tof_s, mode, err_max, limit, w->params);
@@ -300,7 +300,7 @@ static int solve_once(pdg_workspace *w, const pdg_input *in, double tof_s,
     }
     w->last_status = status;
     w->last_iterations = iterations;
-    if (status == PDG_OPTIMAL && isfinite(objective)) {
+    if (status == PDG_TARGET_MET && isfinite(objective)) {
         pdg_solution *x = &w->current;
         pdg_backend_solution(&w->backend, x->r, x->v, x->z, x->u, x->sigma,
                                     &x->error_norm);
@@ -309,9 +309,9 @@ static int solve_once(pdg_workspace *w, const pdg_input *in, double tof_s,
         x->limit = limit;
         x->iterations = iterations;
         x->mode = mode;
-        return PDG_OPTIMAL;
+        return PDG_TARGET_MET;
     }
-    return status == PDG_OPTIMAL ? PDG_NUMERICAL_TROUBLE : status;
+    return status == PDG_TARGET_MET ? PDG_SOLVER_BREAKDOWN : status;
 }
 
 /* ---- the time-of-flight search (mirror of tofsearch.search) -------------- */
@@ -322,7 +322,7 @@ static double evaluate(pdg_workspace *w, const pdg_input *in, double t,
                        int mode, double limit, const pdg_guidance_config *s)
 {
     const int status = solve_once(w, in, t, mode, 0.0, limit, 1, s);
-    if (status == PDG_OPTIMAL) {
+    if (status == PDG_TARGET_MET) {
         const double cost = w->current.objective;
         if (cost < w->best_cost) {
             w->best_cost = cost;
@@ -331,7 +331,7 @@ static double evaluate(pdg_workspace *w, const pdg_input *in, double t,
         }
         return cost;
     }
-    if (status == PDG_INFEASIBLE) {
+    if (status == PDG_UNREACHABLE) {
         return INFINITY;
     }
     return NAN;
@@ -646,12 +646,12 @@ static void clear_plan(pdg_plan *plan, double tof)
  * LIMITS_VIOLATED) and the first failure that is not a proof of infeasibility. */
 static void note(int status, pdg_workspace *w, int *first_failure)
 {
-    if (status == PDG_OPTIMAL) {
+    if (status == PDG_TARGET_MET) {
         if (!w->have_first) {
             w->first = w->current;
             w->have_first = 1;
         }
-    } else if (status != PDG_INFEASIBLE && *first_failure < 0) {
+    } else if (status != PDG_UNREACHABLE && *first_failure < 0) {
         *first_failure = status;
     }
 }
@@ -673,8 +673,8 @@ static pdg_status finish(pdg_workspace *w, const pdg_input *in,
     if (try_target) {
         tried = 1;
         status = solve_once(w, in, tof, PDG_MODE_TARGET, 0.0, planning, 0, s);
-        if (status == PDG_OPTIMAL && fill_and_check(&w->current, in, 1, plan)) {
-            return PDG_OPTIMAL;
+        if (status == PDG_TARGET_MET && fill_and_check(&w->current, in, 1, plan)) {
+            return PDG_TARGET_MET;
         }
         note(status, w, &first_failure);
     }
@@ -682,7 +682,7 @@ static pdg_status finish(pdg_workspace *w, const pdg_input *in,
         limit = reserve;
         tried = 1;
         status = solve_once(w, in, tof, PDG_MODE_TARGET, 0.0, reserve, 0, s);
-        if (status == PDG_OPTIMAL && fill_and_check(&w->current, in, 1, plan)) {
+        if (status == PDG_TARGET_MET && fill_and_check(&w->current, in, 1, plan)) {
             double lo = planning;
             double hi = reserve;
             int step;
@@ -690,7 +690,7 @@ static pdg_status finish(pdg_workspace *w, const pdg_input *in,
             for (step = 0; step < s->reserve_steps; step++) {
                 const double mid = 0.5 * (lo + hi);
                 status = solve_once(w, in, tof, PDG_MODE_TARGET, 0.0, mid, 0, s);
-                if (status == PDG_OPTIMAL && fill_and_check(&w->current, in, 1, plan)) {
+                if (status == PDG_TARGET_MET && fill_and_check(&w->current, in, 1, plan)) {
                     hi = mid;
                     w->kept = w->current;
                 } else {
@@ -698,7 +698,7 @@ static pdg_status finish(pdg_workspace *w, const pdg_input *in,
                 }
             }
             (void)fill_and_check(&w->kept, in, 1, plan);
-            return PDG_OPTIMAL;
+            return PDG_TARGET_MET;
         }
         note(status, w, &first_failure);
     }
@@ -706,7 +706,7 @@ static pdg_status finish(pdg_workspace *w, const pdg_input *in,
         tried = 1;
         status = solve_once(w, in, tof, PDG_MODE_LEAST_ERROR, 0.0, limit, 0, s);
         note(status, w, &first_failure);
-        if (status == PDG_OPTIMAL) {
+        if (status == PDG_TARGET_MET) {
             int j;
             w->kept = w->current;                 /* the least-error plan, judged last */
             for (j = 0; j < ERROR_SLACKS; j++) {
@@ -714,15 +714,15 @@ static pdg_status finish(pdg_workspace *w, const pdg_input *in,
                                      ERROR_SLACK_ABS;
                 status = solve_once(w, in, tof, PDG_MODE_FUEL_AT_ERROR, bound, limit, 0, s);
                 note(status, w, &first_failure);
-                if (status != PDG_OPTIMAL) {
+                if (status != PDG_TARGET_MET) {
                     break;
                 }
                 if (fill_and_check(&w->current, in, 0, plan)) {
-                    return PDG_LEAST_MISS;
+                    return PDG_BEST_REACHABLE;
                 }
             }
             if (fill_and_check(&w->kept, in, 0, plan)) {
-                return PDG_LEAST_MISS;
+                return PDG_BEST_REACHABLE;
             }
         }
     }
@@ -736,7 +736,7 @@ static pdg_status finish(pdg_workspace *w, const pdg_input *in,
         return (pdg_status)first_failure;
     }
     if (!tried) {
-        return PDG_INFEASIBLE;   /* ruled out by the rocket equation, nothing allowed */
+        return PDG_UNREACHABLE;   /* ruled out by the rocket equation, nothing allowed */
     }
     return (pdg_status)w->last_status;
 }
@@ -754,14 +754,14 @@ pdg_status pdg_plan_descent(pdg_workspace *work,
     double r_lo = 0.0;
     double r_hi = 0.0;
     if (work == NULL || input == NULL || plan == NULL) {
-        return PDG_BAD_INPUT;
+        return PDG_INPUT_REFUSED;
     }
     if (s == NULL) {
         pdg_guidance_config_init(&defaults);
         s = &defaults;
     }
     if (!input_ok(input, s)) {
-        return PDG_BAD_INPUT;
+        return PDG_INPUT_REFUSED;
     }
     planning = input->throttle_max == 0.0 ? THROTTLE_MAX : input->throttle_max;
     work->iterations_total = 0;
@@ -770,7 +770,7 @@ pdg_status pdg_plan_descent(pdg_workspace *work,
     work->retries = 0;
     work->budget_exhausted = 0;
     work->have_first = 0;
-    work->last_status = PDG_NUMERICAL_TROUBLE;
+    work->last_status = PDG_SOLVER_BREAKDOWN;
     work->last_iterations = 0;
     {
         /* Bracket of Acikmese & Ploen (2007), with the current mass. */
