@@ -269,3 +269,16 @@ def test_native_retries_a_failed_factorisation(tmp_path):
     r = ReferenceSolver(s.vehicle, 50).solve(*state, time_of_flight_s=56.79737099774833)
     assert g.status == r.status == "target_met"
     assert g.objective == pytest.approx(r.objective, rel=1e-6)
+
+
+def test_generate_says_one_file_count(tmp_path, capsys):
+    # The progress line and the closing line count the same files, and the
+    # count is what lands on disk.
+    import re
+    out = tmp_path / "t"
+    assert cli.main(["generate", str(DEMO_VEHICLE), "--horizon", "4", "--out", str(out)]) == 0
+    cap = capsys.readouterr()
+    writing = int(re.search(r"writing (\d+) files", cap.err).group(1))
+    done = int(re.search(r"N = 4, (\d+) files", cap.out).group(1))
+    on_disk = sum(1 for p in out.rglob("*") if p.is_file())
+    assert writing == done == on_disk

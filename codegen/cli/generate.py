@@ -32,5 +32,6 @@ def run(args) -> int:
     m = generate(args.vehicle, args.horizon, args.out, backend=args.backend, c_name=args.c_name,
                  precision=args.precision, progress=say)
     print(f"generated {args.out}: backend {m['backend']}, N = {m['horizon']}, "
-          f"{len(m['files'])} files, {m['generation_seconds']:.1f} s")
+          f"{len(m['files']) + 1} files (manifest.json included), "
+          f"{m['generation_seconds']:.1f} s")
     return 0
