@@ -133,6 +133,7 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         "least_error_fuel_weight": problem.LEAST_ERROR_FUEL_WEIGHT,
         "error_bound_free": problem.ERROR_BOUND_FREE,
         "error_slack_rel": policy.ERROR_SLACK_REL, "error_slack_abs": policy.ERROR_SLACK_ABS,
+        "nearby_tof_steps": policy.NEARBY_TOF_STEPS,
         "merit_meets_target": policy.MERIT_MEETS_TARGET,
         "reserve_steps_default": policy.RESERVE_STEPS,
         "reserve_steps_max": policy.RESERVE_STEPS_MAX,

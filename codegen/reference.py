@@ -38,7 +38,7 @@ import numpy as np
 from codegen.errors import InputError
 from codegen.model import tofsearch
 from codegen.model.canonical import CLARABEL_TIGHT
-from codegen.model.policy import (ERROR_SLACK_ABS, ERROR_SLACK_REL, MERIT_MEETS_TARGET,
+from codegen.model.policy import (ERROR_SLACK_ABS, ERROR_SLACK_REL, MERIT_MEETS_TARGET, NEARBY_TOF_STEPS,
                                   PROBE_TOLERANCE, RESERVE_STEPS, RESERVE_STEPS_MAX)
 from codegen.model.problem import DescentProblem, reach_bracket, time_of_flight_bracket
 from codegen.model.trajectory import (INPUT_REFUSED, UNREACHABLE, ITERATIONS_EXHAUSTED, BEST_REACHABLE,
@@ -263,26 +263,39 @@ class ReferenceSolver:
             else:
                 met = found.phase == "target" or \
                     found.payload_best.terminal_error <= MERIT_MEETS_TARGET
-                traj = self._finish(run, found.t_best, met, fallback, planning)
+                traj = self._finish(run, found.t_best, met, fallback, planning, nearby=True)
         traj.iterations_total = spent["iters"]
         traj.iterations_max = spent["max"]
         traj.solves = spent["solves"]
         traj.solve_time_s = time.perf_counter() - t0
         return traj
 
-    def _finish(self, run, tof, try_target, fallback, planning, reserve=None):
+    def _finish(self, run, tof, try_target, fallback, planning, reserve=None, nearby=False):
         """The tight solves at one time of flight, in order: the target at the
         planning limit (when the rocket equation allows it); with a reserve,
         the target at the reserve's limit and, if met, bisection for the
         lowest limit that still meets it; then the least error and the least
-        fuel at that error, at the highest limit (when allowed). Returns the
-        first flyable plan, or else the most telling failure."""
+        fuel at that error, at the highest limit (when allowed). ``nearby``
+        (a searched time of flight): when the target plan converged but is
+        not flyable, the target at the nearby times NEARBY_TOF_STEPS first.
+        Returns the first flyable plan, or else the most telling failure."""
         tried = []
         if try_target:
             tr = run("target", tof)
             if tr.status == TARGET_MET:
                 if self._judge(tr, meets_target=True):
                     return tr
+                if nearby:
+                    for step in NEARBY_TOF_STEPS:
+                        t = tof + step * tofsearch.TOLERANCE_S
+                        if t <= 0.0:
+                            continue
+                        near = run("target", t)
+                        if near.status == TARGET_MET and self._judge(near, meets_target=True):
+                            near.message = (f"target met at a nearby time of flight ({t:.6g} s): "
+                                            f"at {tof:.6g} s the plan broke "
+                                            f"{tr.verdict.get('worst')}")
+                            return near
             tried.append(tr)
         limit = None
         if reserve is not None:

@@ -60,6 +60,8 @@ static const double ERROR_BOUND_FREE = 1000000.0;
 static const double ERROR_SLACK_REL[3] = { 0.001, 0.03, 0.3 };
 #define ERROR_SLACKS 3
 static const double ERROR_SLACK_ABS = 0.001;
+static const int NEARBY_TOF_STEPS[4] = { 4, -4, 10, -10 };
+#define NEARBY_STEPS 4
 static const double MERIT_MEETS_TARGET = 0.0001;
 
 /* Time-of-flight search (codegen/model/tofsearch.py). */
@@ -663,7 +665,8 @@ static void note(int status, pdg_workspace *w, int *first_failure)
  * error. Returns the status, with the plan filled. */
 static pdg_status finish(pdg_workspace *w, const pdg_input *in,
                                    double tof, int try_target, double planning, double reserve,
-                                   const pdg_guidance_config *s, pdg_plan *plan)
+                                   int nearby, const pdg_guidance_config *s,
+                                   pdg_plan *plan)
 {
     int first_failure = -1;
     int tried = 0;
@@ -677,6 +680,21 @@ static pdg_status finish(pdg_workspace *w, const pdg_input *in,
             return PDG_TARGET_MET;
         }
         note(status, w, &first_failure);
+        if (status == PDG_TARGET_MET && nearby) {
+            /* Converged but not flyable (the relaxation not tight here): the
+             * target at nearby times of flight (policy.NEARBY_TOF_STEPS). */
+            int j;
+            for (j = 0; j < NEARBY_STEPS; j++) {
+                const double t = tof + (double)NEARBY_TOF_STEPS[j] * s->tof_tolerance_s;
+                if (t <= 0.0) {
+                    continue;
+                }
+                status = solve_once(w, in, t, PDG_MODE_TARGET, 0.0, planning, 0, s);
+                if (status == PDG_TARGET_MET && fill_and_check(&w->current, in, 1, plan)) {
+                    return PDG_TARGET_MET;
+                }
+            }
+        }
     }
     if (reserve > planning) {
         limit = reserve;
@@ -788,7 +806,7 @@ pdg_status pdg_plan_descent(pdg_workspace *work,
         const double t = input->time_of_flight_s;
         const int met = reach_bracket(input, planning, t, t, &r_lo, &r_hi);
         const double reserve = s->reserve_throttle_max > planning ? s->reserve_throttle_max : 0.0;
-        status = finish(work, input, t, met, planning, reserve, s, plan);
+        status = finish(work, input, t, met, planning, reserve, 0, s, plan);
     } else {
         int found;
         int phase_target = 0;
@@ -803,7 +821,7 @@ pdg_status pdg_plan_descent(pdg_workspace *work,
         }
         if (found) {
             const int met = phase_target || work->best_error <= MERIT_MEETS_TARGET;
-            status = finish(work, input, work->best_t, met, planning, 0.0, s, plan);
+            status = finish(work, input, work->best_t, met, planning, 0.0, 1, s, plan);
         } else {
             status = (pdg_status)work->last_status;
             clear_plan(plan, input->time_of_flight_s);
