@@ -79,3 +79,20 @@ def test_no_fallback_reports_infeasible_like_generated_code(capsys):
     assert main(["solve", str(DEMO_VEHICLE), "--state", far, "--horizon", "10", "--json",
                  "--no-fallback"]) == 1
     assert json.loads(capsys.readouterr().out)["status"] == "unreachable"
+
+
+def test_a_state_west_of_the_pad_is_one_argument(capsys):
+    # "--state -1500,..." used to fail in argparse ("expected one argument"):
+    # a value that starts with a minus sign read as an option.
+    assert main(["solve", str(DEMO_VEHICLE), "--state", "-1500,0,1500,50,0,-40,1900",
+                 "--horizon", "8", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["status"] == "target_met"
+    assert out["position_m"][0][0] == pytest.approx(-1500.0, abs=1e-6)   # scaled round trip
+
+
+def test_check_on_a_vehicle_file_is_bad_input(capsys):
+    # pdgc check takes a generated tree; a vehicle file ended in a traceback.
+    assert main(["check", str(DEMO_VEHICLE), "--cases", "2"]) == 2
+    err = capsys.readouterr().err
+    assert "dir = " in err and "manifest.json" in err

@@ -29,8 +29,31 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+#: Options whose value is a comma-separated list that may start with a minus
+#: sign (a state or target west or south of the pad).
+_LIST_OPTIONS = ("--state", "--target")
+
+
+def join_negative_lists(argv: list) -> list:
+    """``--state -1500,0,...`` as ``--state=-1500,0,...``: argparse would read a
+    value starting with '-' as an option and refuse it ("expected one
+    argument")."""
+    out, i = [], 0
+    while i < len(argv):
+        tok = argv[i]
+        if tok in _LIST_OPTIONS and i + 1 < len(argv) and argv[i + 1].startswith("-") \
+                and "," in argv[i + 1]:
+            out.append(f"{tok}={argv[i + 1]}")
+            i += 2
+            continue
+        out.append(tok)
+        i += 1
+    return out
+
+
 def main(argv=None) -> int:
     parser = build_parser()
+    argv = join_negative_lists(list(sys.argv[1:] if argv is None else argv))
     args = parser.parse_args(argv)
     try:
         return args.func(args)

@@ -29,7 +29,12 @@ def run(args) -> int:
     from pathlib import Path
 
     from codegen import versions
+    from codegen.errors import InputError
     from codegen.verify.check import check_tree, replay_line, results_json
+
+    if not (Path(args.dir) / "manifest.json").is_file():
+        raise InputError("dir", args.dir, "must be a generated tree (a directory with "
+                                          "manifest.json), made by pdgc generate")
 
     try:
         env = json.loads((Path(args.dir) / "manifest.json").read_text()).get("environment")

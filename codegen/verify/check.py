@@ -81,7 +81,8 @@ def draw_cases(vehicle, count: int, seed: int, search_every: int = 5) -> list:
 def replay_line(tree_dir, case: Case, horizon: int) -> str:
     state = ",".join(repr(float(x)) for x in case.position_m + case.velocity_mps + [case.mass_kg])
     tof = f" --tof {case.time_of_flight_s!r}" if case.time_of_flight_s is not None else ""
-    return (f"pdgc solve {tree_dir}/vehicle.toml --state {state}{tof} --horizon {horizon} "
+    # --state=...: a state that starts with a minus sign stays one argument.
+    return (f"pdgc solve {tree_dir}/vehicle.toml --state={state}{tof} --horizon {horizon} "
             f"--solver-dir {tree_dir}")
 
 
