@@ -37,6 +37,7 @@ import numpy as np
 
 from codegen.errors import InputError
 from codegen.model import tofsearch
+from codegen.model import library_options
 from codegen.model.canonical import CLARABEL_TIGHT
 from codegen.model.policy import (ERROR_SLACK_ABS, ERROR_SLACK_REL, MERIT_MEETS_TARGET, NEARBY_TOF_STEPS,
                                   PROBE_TOLERANCE, RESERVE_STEPS, RESERVE_STEPS_MAX)
@@ -47,9 +48,7 @@ from codegen.model.vehicle import Vehicle
 from codegen.model.verdict import check_plan
 
 
-CLARABEL_PROBE = {"tol_gap_abs": PROBE_TOLERANCE, "tol_gap_rel": PROBE_TOLERANCE,
-                  "tol_feas": PROBE_TOLERANCE, "tol_infeas_abs": PROBE_TOLERANCE,
-                  "tol_infeas_rel": PROBE_TOLERANCE, "max_iter": 200}
+CLARABEL_PROBE = library_options.clarabel(PROBE_TOLERANCE, iterations=200)
 
 #: When the tight tolerances stall, the reference retries at Clarabel's
 #: defaults (1e-8), then at 1e-7: the worst accuracy of a reference answer.
@@ -58,8 +57,8 @@ CLARABEL_PROBE = {"tol_gap_abs": PROBE_TOLERANCE, "tol_gap_rel": PROBE_TOLERANCE
 CLARABEL_RETRIES = (
     ("Clarabel's default tolerances (1e-8)", "CLARABEL", {}),
     ("relaxed tolerances (1e-7)", "CLARABEL",
-     {"tol_gap_abs": 1e-7, "tol_gap_rel": 1e-7, "tol_feas": 1e-7}),
-    ("ECOS at 1e-9", "ECOS", {"abstol": 1e-9, "reltol": 1e-9, "feastol": 1e-9, "max_iters": 200}),
+     library_options.clarabel(1e-7, certificates=False, iterations=None)),
+    ("ECOS at 1e-9", "ECOS", library_options.ecos(1e-9, iterations=200)),
 )
 
 _STATUS = {

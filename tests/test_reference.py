@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
+from codegen.model import library_options
 from codegen.model.canonical import extract, flat_parameters
 from codegen.model.problem import MODES, DescentProblem, time_of_flight_bracket
 from codegen.reference import ReferenceSolver
@@ -114,11 +115,12 @@ def test_clarabel_ecos_scs_agree(demo_vehicle):
     dp = DescentProblem(demo_vehicle, 20)
     dp.set_parameters(dp.values(*DEMO_STATE, 40.0))
     vals = {}
-    vals["CLARABEL"] = dp.problem.solve(solver="CLARABEL", tol_gap_rel=1e-10, tol_feas=1e-10)
+    vals["CLARABEL"] = dp.problem.solve(solver="CLARABEL", **library_options.clarabel(
+        1e-10, certificates=False, iterations=None))
     import warnings
     warnings.simplefilter("ignore", UserWarning)   # ECOS flags 1e-10 as "inaccurate"
-    vals["ECOS"] = dp.problem.solve(solver="ECOS", abstol=1e-10, reltol=1e-10, feastol=1e-10)
-    vals["SCS"] = dp.problem.solve(solver="SCS", eps_abs=1e-9, eps_rel=1e-9, max_iters=200000)
+    vals["ECOS"] = dp.problem.solve(solver="ECOS", **library_options.ecos(1e-10, iterations=None))
+    vals["SCS"] = dp.problem.solve(solver="SCS", **library_options.scs(1e-9, iterations=200000))
     assert vals["ECOS"] == pytest.approx(vals["CLARABEL"], rel=1e-7)
     assert vals["SCS"] == pytest.approx(vals["CLARABEL"], rel=1e-5)
 

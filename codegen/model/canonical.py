@@ -24,15 +24,15 @@ import cvxpy as cp
 import numpy as np
 import scipy.sparse as sp
 
+from codegen.model import library_options
 from codegen.model.problem import DescentProblem
 
-#: Clarabel settings (its own API names) for the reference solve, and for any
+#: Clarabel settings for the reference solve, and for any
 #: tool that solves this cone program with Clarabel directly to compare with
 #: it (codegen.backends.native.measure, .sweep): tighter than Clarabel's
 #: defaults (1e-8), so that the reference sits a decade inside the 1e-8 the
 #: generated solvers are asked for.
-CLARABEL_TIGHT = {"tol_gap_abs": 1e-9, "tol_gap_rel": 1e-9, "tol_feas": 1e-9,
-                  "tol_infeas_abs": 1e-9, "tol_infeas_rel": 1e-9, "max_iter": 200}
+CLARABEL_TIGHT = library_options.clarabel(1e-9, iterations=200)
 
 
 
