@@ -30,10 +30,9 @@ from codegen.model.trajectory import STATUSES, Trajectory
 from codegen.model.vehicle import load_vehicle
 from codegen.model.verdict import CHECKS
 
-#: The C enum {prefix}_status, in order (templates/guidance.h.j2).
-_STATUS_NAMES = ("target_met", "unreachable", "iterations_exhausted", "solver_breakdown", "input_refused",
-                 "best_reachable", "limits_violated")
-assert all(s in STATUSES for s in _STATUS_NAMES)
+#: The C enum {prefix}_status, in order (templates/guidance.h.j2): the
+#: statuses of codegen.model.trajectory, which keeps that order.
+_STATUS_NAMES = STATUSES
 #: The C enum {prefix}_mode, in order.
 _MODE_NAMES = ("target", "merit", "least_error", "fuel_at_error")
 

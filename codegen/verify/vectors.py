@@ -30,8 +30,7 @@ from codegen.verify.check import TOLERANCES, draw_cases
 from codegen.model.problem import Scaling, time_of_flight_bracket
 from codegen.reference import ReferenceSolver
 from codegen.model.policy import ERROR_SLACK_ABS, ERROR_SLACK_REL
-from codegen.model.trajectory import (INPUT_REFUSED, UNREACHABLE, ITERATIONS_EXHAUSTED, BEST_REACHABLE,
-                                      LIMITS_VIOLATED, TARGET_MET)
+from codegen.model.trajectory import INPUT_REFUSED, ITERATIONS_EXHAUSTED, SOLVED, TARGET_MET
 
 #: Seed of the few dispersed inside points (fixed: the vectors are the same every run).
 INSIDE_SEED = 20260
@@ -40,11 +39,6 @@ INSIDE_POINTS = 3
 OUTSIDE_FACTORS = (1.4, 3.0)
 #: Iteration cap small enough that no descent problem converges in it.
 TINY_ITERATION_CAP = 2
-
-STATUS_CODES = {TARGET_MET: 0, UNREACHABLE: 1, ITERATIONS_EXHAUSTED: 2, "solver_breakdown": 3,
-                INPUT_REFUSED: 4, BEST_REACHABLE: 5, LIMITS_VIOLATED: 6}
-#: Statuses whose vectors carry a plan to compare.
-WITH_PLAN = (TARGET_MET, BEST_REACHABLE)
 
 
 @dataclass
@@ -104,7 +98,7 @@ def tolerances(precision: str, vehicle, tof_tolerance_s: float) -> dict:
 
 def _fill(vec: Vector, traj) -> Vector:
     vec.status = traj.status
-    if traj.status in WITH_PLAN:
+    if traj.status in SOLVED:
         vec.expect_tof_s = float(traj.time_of_flight_s)
         vec.fuel_kg = float(traj.fuel_kg)
         vec.objective = float(traj.objective)

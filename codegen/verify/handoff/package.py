@@ -15,7 +15,7 @@ from pathlib import Path
 from codegen import __version__
 from codegen.emit import c_literal, environment, verify_tree
 from codegen.errors import InputError
-from codegen.verify.vectors import WITH_PLAN
+from codegen.model.trajectory import SOLVED
 from codegen.verify.handoff.tools import (CPPCHECK_FLAGS, M7_DP_FLAGS, RELAXED_FLAGS, STRICT_FLAGS,
                                           _sha256)
 
@@ -118,10 +118,10 @@ def _vector_rows(vectors) -> list:
             "set_tof_tolerance": int(v.tof_tolerance_s is not None),
             "tof_tolerance_s": _c(v.tof_tolerance_s or 0.0),
             "null_workspace": int(v.null_workspace), "status": v.status,
-            "expect_tof_s": _c(v.expect_tof_s if v.status in WITH_PLAN else 0.0),
-            "fuel_kg": _c(v.fuel_kg if v.status in WITH_PLAN else 0.0),
-            "objective": _c(v.objective if v.status in WITH_PLAN else 0.0),
-            "terminal_error": _c(v.terminal_error if v.status in WITH_PLAN else 0.0),
+            "expect_tof_s": _c(v.expect_tof_s if v.status in SOLVED else 0.0),
+            "fuel_kg": _c(v.fuel_kg if v.status in SOLVED else 0.0),
+            "objective": _c(v.objective if v.status in SOLVED else 0.0),
+            "terminal_error": _c(v.terminal_error if v.status in SOLVED else 0.0),
             "position": [[_c(x) for x in r] for r in v.position] if v.position else None,
             "thrust": [[_c(x) for x in r] for r in v.thrust] if v.thrust else None,
         })
