@@ -26,8 +26,8 @@
  * plan independently (the code is reentrant); no heap is used.
  *
  * Bounds of one call (retries included):
- *   solves      at most 111 with a searched time of flight
- *               (102 probes of the search, then at most 9 solves at the
+ *   solves      at most 113 with a searched time of flight
+ *               (102 probes of the search, then at most 11 solves at the
  *               time it found), at most 6 + reserve_steps with a fixed one
  *               (reserve_steps <= 12: at most 18);
  *   iterations  at most iterations_per_solve_max per solve (a solve's retry after a
@@ -45,7 +45,7 @@
 /** Number of intervals of the plan (nodes: N + 1). */
 #define PDG_HORIZON 50
 /** Worst-case number of solves of one call (searched time of flight). */
-#define PDG_MAX_SOLVES 111
+#define PDG_MAX_SOLVES 113
 
 /** Outcome of a plan. */
 typedef enum {

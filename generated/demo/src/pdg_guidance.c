@@ -60,8 +60,8 @@ static const double ERROR_BOUND_FREE = 1000000.0;
 static const double ERROR_SLACK_REL[3] = { 0.001, 0.03, 0.3 };
 #define ERROR_SLACKS 3
 static const double ERROR_SLACK_ABS = 0.001;
-static const int NEARBY_TOF_STEPS[4] = { 4, -4, 10, -10 };
-#define NEARBY_STEPS 4
+static const int NEARBY_TOF_STEPS[6] = { 4, -4, 10, -10, 20, 40 };
+#define NEARBY_STEPS 6
 static const double MERIT_MEETS_TARGET = 0.0001;
 
 /* Time-of-flight search (codegen/model/tofsearch.py). */
