@@ -9,14 +9,18 @@ against the real constraints (codegen/model/verdict.py).
 One call (``solve``):
 
 - **fixed time of flight** (a re-plan, or ``time_of_flight_s`` given): the
-  target mode at tight tolerances, unless the rocket-equation bounds
-  (``problem.reach_bracket``) already rule the target out at that time; if
+  target mode at tight tolerances, unless necessary conditions (the
+  rocket-equation and speed bounds of ``problem.reach_bracket``, the least
+  delta-v of ``problem.target_possible``) already rule the target out at
+  that time; if
   it does not give a flyable plan that meets the target, and terminal error
   is allowed, the least terminal error, then the least fuel with that error
   held (Blackmore, Acikmese & Scharf 2010, extended to the velocity): the
   plan the vehicle can fly that ends closest to the target;
 - **searched time of flight**: ``tofsearch.search`` with probes at
-  ``PROBE_TOLERANCE`` (their ranking is all the search needs), then the
+  ``PROBE_TOLERANCE`` (their ranking is all the search needs; a target
+  probe that ``problem.target_possible`` rules out is infeasible without a
+  solve), then the
   same sequence of tight solves at the time it found.
 
 The answer is the first plan of that sequence that converged and passed the
@@ -41,7 +45,8 @@ from codegen.model import library_options
 from codegen.model.canonical import CLARABEL_TIGHT
 from codegen.model.policy import (ERROR_SLACK_ABS, ERROR_SLACK_REL, MERIT_MEETS_TARGET, NEARBY_TOF_STEPS,
                                   PROBE_TOLERANCE, RESERVE_STEPS, RESERVE_STEPS_MAX)
-from codegen.model.problem import DescentProblem, reach_bracket, time_of_flight_bracket
+from codegen.model.problem import (DescentProblem, reach_bracket, target_possible,
+                                   time_of_flight_bracket)
 from codegen.model.trajectory import (INPUT_REFUSED, UNREACHABLE, ITERATIONS_EXHAUSTED, BEST_REACHABLE,
                                       LIMITS_VIOLATED, SOLVER_BREAKDOWN, TARGET_MET, Trajectory)
 from codegen.model.vehicle import Vehicle
@@ -226,22 +231,35 @@ class ReferenceSolver:
             spent["solves"] += 1
             return tr
 
+        def possible_at(t):
+            return target_possible(self.vehicle, position_m, velocity_mps, mass_kg, t,
+                                   self.horizon, target_m, velocity_target_mps)
+
         lo, hi = time_of_flight_bracket(self.vehicle, position_m, velocity_mps, mass_kg,
                                         throttle_max)
         lo = max(lo, 1e-3 * hi)
         if time_of_flight_s is not None:
             reach = reach_bracket(self.vehicle, velocity_mps, mass_kg, time_of_flight_s,
-                                  time_of_flight_s, velocity_target_mps, throttle_max)
+                                  time_of_flight_s, velocity_target_mps, throttle_max,
+                                  position_m, target_m, self.horizon)
+            possible = reach is not None and possible_at(time_of_flight_s)
             reserve = None
             if reserve_throttle_max is not None and reserve_throttle_max > planning:
                 reserve = (float(reserve_throttle_max), reserve_steps)
-            traj = self._finish(run, time_of_flight_s, reach is not None, fallback, planning,
+            traj = self._finish(run, time_of_flight_s, possible, fallback, planning,
                                 reserve)
         else:
             reach = reach_bracket(self.vehicle, velocity_mps, mass_kg, lo, hi,
-                                  velocity_target_mps, throttle_max)
+                                  velocity_target_mps, throttle_max, position_m, target_m,
+                                  self.horizon)
 
             def evaluate(t, mode):
+                # A target probe that needs more delta-v than the propellant
+                # gives is infeasible without a solve (problem.target_possible).
+                if mode == "target" and not possible_at(t):
+                    return tofsearch.INFEASIBLE, math.inf, Trajectory(
+                        status=UNREACHABLE, solver=self.name, horizon=self.horizon,
+                        time_of_flight_s=float(t), message=OUT_OF_REACH)
                 # Only a proven infeasible status steers the search as
                 # infeasible; numerical trouble or an iteration limit says
                 # nothing about t (tofsearch's rule for failures).
@@ -350,8 +368,7 @@ class ReferenceSolver:
         if tried:
             return _without_plan(tried[-1])
         return Trajectory(status=UNREACHABLE, solver=self.name, horizon=self.horizon,
-                          time_of_flight_s=float(tof),
-                          message="target out of reach at this time of flight (rocket equation)")
+                          time_of_flight_s=float(tof), message=OUT_OF_REACH)
 
     def _judge(self, tr: Trajectory, meets_target: bool) -> bool:
         """Take the verdict of the real constraints into ``tr``; True if flyable."""
@@ -362,6 +379,11 @@ class ReferenceSolver:
         tr.verdict = v.as_dict()
         tr.verdict_text = v.summary()
         return v.flyable
+
+
+#: Why a target solve was skipped (problem.reach_bracket, problem.target_possible).
+OUT_OF_REACH = ("target out of reach at this time of flight (rocket equation, speed limit "
+                "or least delta-v)")
 
 
 def _without_plan(tr: Trajectory) -> Trajectory:

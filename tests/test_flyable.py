@@ -13,7 +13,8 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from codegen.model.problem import Scaling, reach_bracket, time_of_flight_bracket
+from codegen.model.problem import (Scaling, impulse_delta_v, reach_bracket, speed_lower_bound,
+                                   target_possible, time_of_flight_bracket)
 from codegen.model.trajectory import BEST_REACHABLE, LIMITS_VIOLATED, TARGET_MET
 from codegen.model.verdict import TOLERANCES, check_plan
 from codegen.reference import ERROR_SLACK_ABS, ERROR_SLACK_REL, ReferenceSolver
@@ -115,6 +116,58 @@ def test_rocket_equation_bounds_are_necessary_conditions(ref, demo_vehicle):
     assert lo < reach[0] < reach[1] < hi
     for t in (reach[0] * 0.9, reach[1] * 1.02):
         assert ref.solve_mode("target", pos, vel, mass, t).status == "unreachable"
+
+
+def test_speed_and_delta_v_bounds_are_necessary_conditions(ref, demo_vehicle):
+    # problem.speed_lower_bound and problem.target_possible must never rule
+    # out a time at which the target mode solves; on a state 9 km out they
+    # rule out most short times, and the reference solves agree there.
+    pos, vel, mass = [9000.0, 300.0, 1500.0], [-60.0, 5.0, -40.0], 1880.0
+    n = ref.horizon
+    lo, hi = time_of_flight_bracket(demo_vehicle, pos, vel, mass)
+    old = reach_bracket(demo_vehicle, vel, mass, lo, hi)
+    new = reach_bracket(demo_vehicle, vel, mass, lo, hi, position_m=pos, horizon=n)
+    assert new[0] == pytest.approx(speed_lower_bound(demo_vehicle, pos, vel, n))
+    assert new[0] > old[0] + 50.0
+    solved, ruled_out = 0, 0
+    for t in np.linspace(old[0], old[1], 24):
+        status = ref.solve_mode("target", pos, vel, mass, float(t)).status
+        possible = t >= new[0] and target_possible(demo_vehicle, pos, vel, mass, float(t), n)
+        if status == TARGET_MET:
+            solved += 1
+            assert possible, f"t = {t}: solved, but the bounds rule it out"
+        if not possible:
+            ruled_out += 1
+            assert status == "unreachable"
+    assert solved >= 2 and ruled_out >= 12
+
+
+def test_least_delta_v_is_the_two_interval_solution(demo_vehicle):
+    # problem.impulse_delta_v claims the least sum of dt |u_k| over all
+    # acceleration sequences that meet the target (the zero-order-hold rows
+    # summed) in closed form. Checked against the same minimum solved
+    # directly as an SOCP by CVXPY with Clarabel (general-purpose reference
+    # solver), for a few states and times of flight.
+    import cvxpy as cp
+
+    g = np.asarray(demo_vehicle.gravity_vector)
+    rng = np.random.default_rng(5)
+    n = 10
+    for _ in range(4):
+        pos = rng.uniform([500.0, -800.0, 300.0], [9000.0, 800.0, 2500.0])
+        vel = rng.uniform([-80.0, -20.0, -60.0], [-20.0, 20.0, -10.0])
+        t = float(rng.uniform(20.0, 140.0))
+        dt = t / n
+        u = cp.Variable((n, 3))
+        rows_v = vel + dt * cp.sum(u, axis=0) + g * t                 # v_N
+        rows_r = pos + vel * t + 0.5 * g * t * t + sum(
+            dt * dt * (n - k - 0.5) * u[k] for k in range(n))         # r_N
+        prob = cp.Problem(cp.Minimize(dt * cp.sum(cp.norm(u, 2, axis=1))),
+                          [rows_v == 0.0, rows_r == 0.0])
+        prob.solve(solver=cp.CLARABEL)
+        assert prob.status == "optimal"
+        closed = impulse_delta_v(demo_vehicle, pos, vel, t, n)
+        assert closed == pytest.approx(prob.value, rel=1e-6)
 
 
 def test_a_non_tight_best_reachable_plan_is_recovered_with_more_error(ref, demo_vehicle):

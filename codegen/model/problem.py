@@ -291,7 +291,8 @@ def _quadratic_below(a: float, b: float, c: float):
 
 
 def reach_bracket(vehicle: Vehicle, velocity_mps, mass_kg: float, t_lo: float, t_hi: float,
-                  velocity_target_mps=(0.0, 0.0, 0.0), throttle_max=None):
+                  velocity_target_mps=(0.0, 0.0, 0.0), throttle_max=None, position_m=None,
+                  target_m=(0.0, 0.0, 0.0), horizon=None):
     """The part of [t_lo, t_hi] where the target can possibly be met, or None.
 
     Necessary conditions of the discretised problem with the terminal velocity
@@ -303,8 +304,15 @@ def reach_bracket(vehicle: Vehicle, velocity_mps, mass_kg: float, t_lo: float, t
     dt sum sigma_k <= t rho2 / m_dry (the upper thrust bound, sigma_k <=
     rho2 exp(-z_k) <= rho2 / m_dry, the tangent being below the convex
     exp). Both are quadratic in t; a time outside either interval has no
-    solution with the target met, whatever the solver says. Returns
-    (lo, hi) inside [t_lo, t_hi], or None when no such time is left.
+    solution with the target met, whatever the solver says.
+
+    With ``position_m`` and ``horizon`` given, also the speed limit: the
+    position rows give r_{k+1} - r_k = dt (v_k + v_{k+1}) / 2 exactly (the
+    acceleration is held on each interval), and |v_k| <= v_max at nodes
+    1..N-1, so |r_target - r_0| <= dt (|v_0| + 2 (N - 1) v_max + |v_target|) / 2,
+    a lower bound on t = N dt (``speed_lower_bound``).
+
+    Returns (lo, hi) inside [t_lo, t_hi], or None when no such time is left.
     """
     # Scalar arithmetic in a fixed order: the generated C computes the same bits.
     g = [float(x) for x in vehicle.gravity_vector]
@@ -323,7 +331,72 @@ def reach_bracket(vehicle: Vehicle, velocity_mps, mass_kg: float, t_lo: float, t
         return None
     lo = max(t_lo, first[0], second[0])
     hi = min(t_hi, first[1], second[1])
+    if position_m is not None and horizon is not None:
+        lo = max(lo, speed_lower_bound(vehicle, position_m, velocity_mps, horizon, target_m,
+                                       velocity_target_mps))
     return (lo, hi) if lo <= hi else None
+
+
+def _norm3(x, y, z) -> float:
+    # One fixed order of operations: the generated C computes the same bits.
+    return math.sqrt(x * x + y * y + z * z)
+
+
+def speed_lower_bound(vehicle: Vehicle, position_m, velocity_mps, horizon: int,
+                      target_m=(0.0, 0.0, 0.0), velocity_target_mps=(0.0, 0.0, 0.0)) -> float:
+    """Shortest time of flight at which the speed limit lets the vehicle
+    reach the target (reach_bracket's third condition):
+    t >= 2 N |r_target - r_0| / (|v_0| + 2 (N - 1) v_max + |v_target|)."""
+    n = int(horizon)
+    d = [float(t) - float(r) for t, r in zip(target_m, position_m)]
+    v0 = [float(x) for x in velocity_mps]
+    vt = [float(x) for x in velocity_target_mps]
+    dist = _norm3(d[0], d[1], d[2])
+    speeds = (_norm3(v0[0], v0[1], v0[2]) + 2.0 * (n - 1) * vehicle.speed_max_mps
+              + _norm3(vt[0], vt[1], vt[2]))
+    return 2.0 * n * dist / speeds
+
+
+def impulse_delta_v(vehicle: Vehicle, position_m, velocity_mps, tof_s: float, horizon: int,
+                    target_m=(0.0, 0.0, 0.0), velocity_target_mps=(0.0, 0.0, 0.0)) -> float:
+    """The least sum of dt |u_k| over every acceleration sequence that meets
+    the target at time of flight tof_s, thrust limits aside: a lower bound
+    on the delta-v any plan with the target met needs (DEVELOPERS.md,
+    "Time-of-flight search").
+
+    Summing the zero-order-hold rows, with U_k = dt u_k and
+    c_k = dt (N - k - 1/2): sum U_k = A = v_target - v_0 - g t and
+    sum c_k U_k = B = r_target - r_0 - v_0 t - g t^2 / 2. Each c_k lies in
+    [c_{N-1}, c_0], so U_k can be split between intervals 0 and N-1 keeping
+    both sums and |U_k|, and the triangle inequality merges the parts: the
+    least sum of |U_k| is |U_0| + |U_{N-1}| of the unique two-interval
+    solution U_0 = (B - c_{N-1} A) / (c_0 - c_{N-1}), U_{N-1} = A - U_0.
+    """
+    n = int(horizon)
+    t = float(tof_s)
+    dt = t / n
+    g = [float(x) for x in vehicle.gravity_vector]
+    a = [0.0, 0.0, 0.0]
+    b = [0.0, 0.0, 0.0]
+    for i in range(3):
+        v0 = float(velocity_mps[i])
+        a[i] = float(velocity_target_mps[i]) - v0 - g[i] * t
+        b[i] = float(target_m[i]) - float(position_m[i]) - v0 * t - 0.5 * g[i] * t * t
+    span = dt * (n - 1)
+    first = [(b[i] - 0.5 * dt * a[i]) / span for i in range(3)]
+    last = [a[i] - first[i] for i in range(3)]
+    return _norm3(first[0], first[1], first[2]) + _norm3(last[0], last[1], last[2])
+
+
+def target_possible(vehicle: Vehicle, position_m, velocity_mps, mass_kg: float, tof_s: float,
+                    horizon: int, target_m=(0.0, 0.0, 0.0),
+                    velocity_target_mps=(0.0, 0.0, 0.0)) -> bool:
+    """False when the target cannot be met at tof_s: the least delta-v
+    (impulse_delta_v) exceeds what the propellant gives,
+    dt sum |u_k| <= dt sum sigma_k = c (z_0 - z_N) <= c ln(m_0 / m_dry)."""
+    budget = (1.0 / vehicle.mass_flow_per_n) * math.log(mass_kg / vehicle.mass_dry_kg)
+    return impulse_delta_v(vehicle, position_m, velocity_mps, tof_s, horizon, target_m,
+                           velocity_target_mps) <= budget
 
 
 class DescentProblem:

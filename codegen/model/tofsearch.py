@@ -7,7 +7,9 @@ one of two modes (codegen/model/problem.py, MODES):
 
 1. **target**: least fuel with the target met. Over the part of the bracket
    where the target can be met at all (``problem.reach_bracket``, necessary
-   conditions of the rocket equation), ``GRID_POINTS`` times evenly spread,
+   conditions of the rocket equation and the speed limit; the caller's
+   ``evaluate`` may also call a probe infeasible without a solve,
+   ``problem.target_possible``), ``GRID_POINTS`` times evenly spread,
    both ends included. If any is feasible, Brent's minimiser runs from the
    best of them over its two neighbours until the bracket is shorter than
    ``tolerance_s``, and the search ends there.

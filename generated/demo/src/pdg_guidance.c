@@ -47,6 +47,7 @@ static const double MASS_FLOW_PER_N = 0.00044335487520779493;
 static const double THROTTLE_MIN = 0.25;
 static const double THROTTLE_MAX = 0.85;
 static const double GRAVITY_UP_MPS2 = -3.7114;
+static const double SPEED_MAX_MPS = 110.0;
 
 /* Terminal error weights, SI (problem.terminal_error_weights in SI). */
 static const double ERROR_WEIGHT[6] = { 0.01, 0.01, 0.01, 1.0, 1.0, 0.5 };
@@ -318,12 +319,19 @@ static int solve_once(pdg_workspace *w, const pdg_input *in, double tof_s,
 
 /* ---- the time-of-flight search (mirror of tofsearch.search) -------------- */
 
-/* One evaluation: the cost when solved, INFINITY when proven infeasible, NAN
- * when failed; keeps the phase's best point. */
+static int target_possible(const pdg_input *in, double tof_s);
+
+/* One evaluation: the cost when solved, INFINITY when proven infeasible
+ * (by a solve, or without one when target_possible rules a target probe
+ * out), NAN when failed; keeps the phase's best point. */
 static double evaluate(pdg_workspace *w, const pdg_input *in, double t,
                        int mode, double limit, const pdg_guidance_config *s)
 {
-    const int status = solve_once(w, in, t, mode, 0.0, limit, 1, s);
+    int status;
+    if (mode == PDG_MODE_TARGET && !target_possible(in, t)) {
+        return INFINITY;    /* more delta-v than the propellant gives: no solve */
+    }
+    status = solve_once(w, in, t, mode, 0.0, limit, 1, s);
     if (status == PDG_TARGET_MET) {
         const double cost = w->current.objective;
         if (cost < w->best_cost) {
@@ -525,6 +533,25 @@ static int quadratic_below(double a, double b, double c, double *lo, double *hi)
     return 1;
 }
 
+/* sqrt(x^2 + y^2 + z^2) in problem._norm3's order. */
+static double norm3(double x, double y, double z)
+{
+    return sqrt(x * x + y * y + z * z);
+}
+
+/* Shortest time of flight the speed limit allows (problem.speed_lower_bound). */
+static double speed_lower_bound(const pdg_input *in)
+{
+    const double dist = norm3(in->target_m[0] - in->position_m[0],
+                              in->target_m[1] - in->position_m[1],
+                              in->target_m[2] - in->position_m[2]);
+    const double speeds = norm3(in->velocity_mps[0], in->velocity_mps[1], in->velocity_mps[2]) +
+                          2.0 * (double)(N_ - 1) * SPEED_MAX_MPS +
+                          norm3(in->velocity_target_mps[0], in->velocity_target_mps[1],
+                                in->velocity_target_mps[2]);
+    return 2.0 * (double)N_ * dist / speeds;
+}
+
 /* The part of [t_lo, t_hi] where the target can be met at all; 0 when none. */
 static int reach_bracket(const pdg_input *in, double limit, double t_lo, double t_hi,
                          double *lo, double *hi)
@@ -553,7 +580,37 @@ static int reach_bracket(const pdg_input *in, double limit, double t_lo, double 
     }
     *lo = fmax(t_lo, fmax(lo1, lo2));
     *hi = fmin(t_hi, fmin(hi1, hi2));
+    *lo = fmax(*lo, speed_lower_bound(in));
     return *lo <= *hi;
+}
+
+/* Least delta-v of any plan that meets the target at tof_s, thrust limits
+ * aside (mirror of problem.impulse_delta_v); 1 when the propellant covers it
+ * (problem.target_possible), 0 when the target cannot be met at tof_s. */
+static int target_possible(const pdg_input *in, double tof_s)
+{
+    const double budget = (1.0 / MASS_FLOW_PER_N) * log(in->mass_kg / MASS_DRY_KG);
+    const double g[3] = { 0.0, 0.0, GRAVITY_UP_MPS2 };
+    const double t = tof_s;
+    const double dt = t / (double)N_;
+    const double span = dt * (double)(N_ - 1);
+    double a[3];
+    double b[3];
+    double first[3];
+    double last[3];
+    int i;
+    for (i = 0; i < 3; i++) {
+        const double v0 = in->velocity_mps[i];
+        a[i] = in->velocity_target_mps[i] - v0 - g[i] * t;
+        b[i] = in->target_m[i] - in->position_m[i] - v0 * t - 0.5 * g[i] * t * t;
+    }
+    for (i = 0; i < 3; i++) {
+        first[i] = (b[i] - 0.5 * dt * a[i]) / span;
+    }
+    for (i = 0; i < 3; i++) {
+        last[i] = a[i] - first[i];
+    }
+    return norm3(first[0], first[1], first[2]) + norm3(last[0], last[1], last[2]) <= budget;
 }
 
 /* ---- the plan ------------------------------------------------------------ */
@@ -804,7 +861,8 @@ pdg_status pdg_plan_descent(pdg_workspace *work,
     }
     if (input->time_of_flight_s > 0.0) {
         const double t = input->time_of_flight_s;
-        const int met = reach_bracket(input, planning, t, t, &r_lo, &r_hi);
+        const int met = reach_bracket(input, planning, t, t, &r_lo, &r_hi) &&
+                        target_possible(input, t);
         const double reserve = s->reserve_throttle_max > planning ? s->reserve_throttle_max : 0.0;
         status = finish(work, input, t, met, planning, reserve, 0, s, plan);
     } else {
