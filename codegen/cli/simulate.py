@@ -34,7 +34,7 @@ def register(sub) -> None:
     s.add_argument("--tracking-bandwidth", type=finite_float("--tracking-bandwidth"), default=None,
                    metavar="RAD_S", help="tracking loop bandwidth (default 0.5 rad/s; 0: none)")
     s.add_argument("--terminal-s", type=finite_float("--terminal-s"), default=None, metavar="S",
-                   help="stop re-planning below this time to go (default 3 s)")
+                   help="stop re-planning below this time to go (default 8 s)")
     s.add_argument("--descent-altitude", type=finite_float("--descent-altitude"), default=None,
                    metavar="M", help="guidance aims at rest this high above the target, then a "
                    "constant-speed vertical descent to contact (default 4 m; 0: none)")

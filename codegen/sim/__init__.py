@@ -66,10 +66,11 @@ Tracking loop
     the plan's accelerations alone.
 
 Terminal phase (rules chosen here, both common practice)
-    1. When the time to go falls below ``terminal_s`` (default 3 s), guidance
-       stops re-planning and flies (tracks) the last good plan to its end: a
-       re-plan over a vanishing horizon has tiny intervals, its thrust bounds
-       leave no room, and a new plan cannot change much.
+    1. When the time to go falls below ``terminal_s`` (default 8 s,
+       measured: settings.TERMINAL_S), guidance stops re-planning and flies
+       (tracks) the last good plan to its end: a re-plan over a vanishing
+       horizon has tiny intervals, its thrust bounds leave no room, and late
+       re-plans pass navigation noise straight into the touchdown velocity.
     2. The plans aim at rest ``descent_altitude_m`` (default 4 m) above the
        target; from there a vertical descent at constant speed
        ``descent_speed_mps`` (default 1 m/s, reached at 1 m/s^2) under the
