@@ -39,6 +39,29 @@ def test_demo_file_loads_and_says_it_is_invented(demo_vehicle):
     assert demo_vehicle.mass_dry_kg < c.mass_kg <= demo_vehicle.mass_wet_kg
 
 
+def test_envelope_box_file_is_the_vehicles_envelope(demo_vehicle):
+    # examples/demo_envelope_box.toml samples exactly the demo vehicle's
+    # [envelope] box (uniform per coordinate): issue 17's iteration figures
+    # are quoted over it, so it must follow the vehicle file.
+    path = ROOT / "examples" / "demo_envelope_box.toml"
+    assert "INVENTED" in path.read_text()
+    d = load_dispersions(path, demo_vehicle)
+    assert d.time_of_flight_s is None
+    env = demo_vehicle.envelope
+    cases = [d.case(i) for i in range(2000)]
+    for name, lo, hi in (("position_m", env.position_min_m, env.position_max_m),
+                         ("velocity_mps", env.velocity_min_mps, env.velocity_max_mps)):
+        vals = np.array([getattr(c, name) for c in cases])
+        assert (vals >= np.asarray(lo)).all() and (vals <= np.asarray(hi)).all()
+        span = np.asarray(hi) - np.asarray(lo)
+        # uniform over the whole box: the draws reach within 1 % of each face
+        assert (vals.min(axis=0) - np.asarray(lo) < 0.01 * span).all()
+        assert (np.asarray(hi) - vals.max(axis=0) < 0.01 * span).all()
+    masses = np.array([c.mass_kg for c in cases])
+    assert env.mass_min_kg <= masses.min() < env.mass_min_kg + 1.0
+    assert env.mass_max_kg - 1.0 < masses.max() <= env.mass_max_kg
+
+
 def test_cases_depend_on_seed_and_index_only(demo_vehicle):
     d = parse_dispersions(base_doc(), demo_vehicle)
     first = [d.case(i) for i in range(5)]
