@@ -340,6 +340,7 @@ def whole_record(case):
     """A record with every field a run writes (cases.run_case), as one JSON line."""
     out = {"status": "target_met", "iterations": 9, "iterations_max": 9, "iterations_total": 90,
            "solves": 10, "solve_time_s": 0.01}
+    out.update({k: None for k in erecords.OUTCOME_PRESENT})
     rec = {"case": case, "inputs": {"position_m": [1.0, 0.0, 1.0], "velocity_mps": [0.0] * 3,
                                     "mass_kg": 1.0, "time_of_flight_s": None, "thrust_derate": None},
            "generated": out, "reference": None, "reference_why": [], "accuracy": None}
@@ -362,6 +363,7 @@ def test_torn_last_line_is_dropped_and_damage_is_refused(tmp_path):
     (lambda: whole_record(0) + b'{"case": 1}\n', ["line 2", "lacks 'inputs' (a stub record)"]),
     (lambda: whole_record(0).replace(b'"iterations_max"', b'"iterations_mxa"'),
      ["line 1", "generated.iterations_max"]),
+    (lambda: whole_record(0).replace(b'"fuel_kg"', b'"fuel_kgg"'), ["line 1", "generated.fuel_kg"]),
     (lambda: whole_record(0).replace(b'"target_met"', b'"target_mett"'),
      ["line 1", "generated.status", "not one of"]),
 ])

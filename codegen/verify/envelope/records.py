@@ -27,6 +27,9 @@ RECORD_FIELDS = {"case": int, "inputs": dict, "generated": dict, "reference": (d
 INPUT_FIELDS = ("position_m", "velocity_mps", "mass_kg", "time_of_flight_s", "thrust_derate")
 OUTCOME_FIELDS = {"status": str, "iterations": int, "iterations_max": int, "iterations_total": int,
                   "solves": int, "solve_time_s": (int, float)}
+#: Fields of an outcome that may be null but must be there.
+OUTCOME_PRESENT = ("fuel_kg", "time_of_flight_s", "landing_miss_m", "objective", "message",
+                   "terminal_error", "throttle_limit", "flyable", "worst_check")
 _DAMAGED = ("; the results file is damaged: remove the line (its case is then solved again) "
             "or start a new --out")
 
@@ -53,6 +56,9 @@ def record_fault(rec) -> str:
         for key, kind in OUTCOME_FIELDS.items():
             if not isinstance(out.get(key), kind) or isinstance(out.get(key), bool):
                 return f"has '{side}.{key}' = {out.get(key)!r} (missing or not a number)"
+        for key in OUTCOME_PRESENT:
+            if key not in out:
+                return f"lacks '{side}.{key}'"
         if out["status"] not in STATUSES:
             return f"has '{side}.status' = {out['status']!r}, not one of {', '.join(STATUSES)}"
     return ""
