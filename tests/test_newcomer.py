@@ -232,3 +232,76 @@ def test_solve_out_writes_the_format_of_its_suffix(tmp_path, capsys):
         assert out.exists()
     assert loadmat(tmp_path / "plan.mat")["t_s"].shape == (11, 1)
     assert [p.name for p in tmp_path.iterdir() if ".tmp" in p.name] == []
+
+
+# -- pictures -----------------------------------------------------------------
+
+def test_demo_plot_shows_throttle_fraction_3d_and_target_relative_axes(demo_vehicle):
+    import matplotlib.pyplot as plt
+    from codegen.plot import plot_figure
+    import codegen.api as pdgc
+
+    traj = pdgc.plan(demo_vehicle, *DEMO_STATE, time_of_flight_s=40.0, target_m=(0, 100, 0),
+                     horizon=10)
+    fig = plot_figure(traj, demo_vehicle, (0, 100, 0))
+    try:
+        axes = {a.get_title(): a for a in fig.axes}
+        thr = axes["throttle"]
+        assert "fraction of thrust_max_n" in thr.get_ylabel()
+        (line,) = [ln for ln in thr.get_lines() if ln.get_label() == "throttle"]
+        assert np.allclose(line.get_ydata()[:10], traj.throttle)
+        bounds = sorted(ln.get_ydata()[0] for ln in thr.get_lines() if ln.get_label() != "throttle")
+        assert bounds == [demo_vehicle.throttle_min, traj.throttle_limit]
+        three_d = [a for a in fig.axes if a.name == "3d"]
+        assert len(three_d) == 1 and "from the target (0, 100, 0) m" in three_d[0].get_title()
+        assert "from the target" in axes["side view"].get_xlabel()
+    finally:
+        plt.close(fig)
+
+
+def _captured_figures(monkeypatch, records, **kw):
+    import codegen.plot
+    from codegen.verify.envelope import figures as efig
+    got = {}
+
+    def keep(fig, dpi=100):
+        fig.canvas.draw()
+        got[len(got)] = fig
+        return f"fig{len(got) - 1}"
+
+    monkeypatch.setattr(codegen.plot, "figure_png_base64", keep)
+    names = efig.figures(records, 30, 300, **kw)
+    return {name: got[int(uri[3:])] for name, uri in names.items()}
+
+
+def _record(i, x, up, it, t):
+    gen = {"status": "target_met", "iterations_max": it, "iterations_total": 10 * it,
+           "solve_time_s": t, "fuel_kg": 100.0 + i}
+    return {"case": i, "inputs": {"position_m": [x, 0.0, up]}, "generated": gen, "accuracy": None}
+
+
+def test_feasibility_map_draws_the_envelope_box(monkeypatch, demo_vehicle):
+    from matplotlib.patches import Rectangle
+    recs = [_record(i, 1200.0 + 100 * i, 1300.0 + 50 * i, 12 + i % 3, 0.01) for i in range(5)]
+    figs = _captured_figures(monkeypatch, recs, envelope=demo_vehicle.envelope)
+    (box,) = [p for p in figs["feasibility"].axes[0].patches if isinstance(p, Rectangle)]
+    env = demo_vehicle.envelope
+    assert box.get_xy() == (env.position_min_m[0], env.position_min_m[2])
+    assert box.get_width() == env.position_max_m[0] - env.position_min_m[0]
+    assert box.get_height() == env.position_max_m[2] - env.position_min_m[2]
+    assert box.get_label() == "vehicle [envelope]"
+
+
+def test_histograms_of_few_cases_have_readable_integer_ticks(monkeypatch):
+    recs = [_record(i, 1500.0, 1500.0, 12 + i % 3, 0.010 + 0.001 * i) for i in range(4)]
+    figs = _captured_figures(monkeypatch, recs)
+    for name in ("iterations", "solve_time"):
+        ax = figs[name].axes[0]
+        lo, hi = ax.get_ylim()
+        ticks = [t for t in ax.get_yticks() if lo <= t <= hi]
+        assert len(ticks) >= 2, (name, ticks)
+        assert all(float(t).is_integer() for t in ticks), (name, ticks)   # counts of cases
+        labels = [lab.get_text() for lab in ax.get_yticklabels() if lab.get_text()]
+        assert labels, name
+        xlo, xhi = ax.get_xlim()
+        assert len([t for t in ax.get_xticks() if xlo <= t <= xhi]) >= 2, name
