@@ -454,3 +454,22 @@ def test_a_record_of_another_draw_is_refused_on_resume(setup, straight_run, tmp_
                      "--out", str(copy)])
     err = capsys.readouterr().err
     assert code == 2 and f"case {rec['case']}" in err and "is not the draw of this case" in err
+
+
+def test_a_full_disk_is_a_message_not_a_traceback(setup, tmp_path, capsys, monkeypatch):
+    # Issue 18, item 12: a full disk ended in chained OSErrors.
+    import errno
+    _, tree, disp = setup
+
+    def full(fd, data):
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+    monkeypatch.setattr(erecords.os, "write", full)
+    code = cli.main(["envelope", str(tree), "--dispersions", str(disp), "--cases", "2",
+                     "--reference-every", "0", "--stand-out-iterations", "1000", "--workers", "1",
+                     "--no-progress", "--out", str(tmp_path / "run")])
+    err = capsys.readouterr().err
+    assert code == 2 and "No space left on device" in err and "Traceback" not in err
+    # The manifest is whole and names the session that was cut short.
+    man = json.loads((tmp_path / "run" / erecords.MANIFEST_NAME).read_text())
+    assert man["sessions"][-1]["finished"] is True and man["sessions"][-1]["ran"] == 0

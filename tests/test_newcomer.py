@@ -305,3 +305,20 @@ def test_histograms_of_few_cases_have_readable_integer_ticks(monkeypatch):
         assert labels, name
         xlo, xhi = ax.get_xlim()
         assert len([t for t in ax.get_xticks() if xlo <= t <= xhi]) >= 2, name
+
+
+def test_api_generated_solver_answers_like_the_reference(tmp_path):
+    import codegen.api as pdgc
+    vehicle = pdgc.load_vehicle(DEMO_VEHICLE)
+    ref = pdgc.plan(vehicle, *DEMO_STATE, horizon=10)
+    tree = pdgc.generate(DEMO_VEHICLE, tmp_path / "t10", horizon=10)
+    solver = pdgc.load_generated(tree)
+    gen = solver.solve(*DEMO_STATE)
+    assert isinstance(gen, pdgc.Trajectory) and isinstance(ref, pdgc.Trajectory)
+    assert gen.status == ref.status == "target_met"
+    # pdgc check's tolerance on a searched plan's fuel (README: 1e-4 relative).
+    assert abs(gen.fuel_kg - ref.fuel_kg) <= 1e-4 * ref.fuel_kg
+    # The generated solver's no-plan message says why, as the reference's does.
+    below = solver.solve([1500.0, 0.0, -10.0], [-50.0, 0.0, -40.0], 1900.0)
+    assert below.status == "unreachable" and "below the target" in below.message
+    assert not below.degraded
