@@ -322,3 +322,11 @@ def test_api_generated_solver_answers_like_the_reference(tmp_path):
     below = solver.solve([1500.0, 0.0, -10.0], [-50.0, 0.0, -40.0], 1900.0)
     assert below.status == "unreachable" and "below the target" in below.message
     assert not below.degraded
+
+
+def test_handoff_refuses_a_negative_check_count_before_any_work(capsys):
+    with pytest.raises(SystemExit) as info:
+        main(["handoff", "generated/demo", "--check-cases", "-3", "--no-checks"])
+    err = capsys.readouterr().err
+    assert info.value.code == 2 and "--check-cases = -3: must be >= 0" in err
+    assert "reference solve" not in err
