@@ -26,6 +26,7 @@ import numpy as np
 
 from codegen.emit import verify_tree
 from codegen.errors import InputError
+from codegen.model.diagnose import explain_unreachable
 from codegen.model.trajectory import STATUSES, Trajectory
 from codegen.model.vehicle import load_vehicle
 from codegen.model.verdict import CHECKS
@@ -243,6 +244,10 @@ class GeneratedSolver:
             if status == "limits_violated":
                 traj.message = (f"plan breaks a real constraint: {traj.verdict['worst']} "
                                 f"{viol[worst]:.3g}")
+        if status == "unreachable":
+            traj.message = explain_unreachable(self.vehicle, position_m, velocity_mps, mass_kg,
+                                               time_of_flight_s, target_m, velocity_target_mps,
+                                               throttle_max, traj.message)
         return traj
 
 

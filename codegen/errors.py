@@ -16,7 +16,8 @@ class InputError(ValueError):
         self.field = field
         self.value = value
         self.rule = rule
-        msg = f"{field} = {value!r}: {rule}"
+        # A missing key or table has no value to show.
+        msg = f"{field}: {rule}" if value is None else f"{field} = {value!r}: {rule}"
         if hint:
             msg += f" ({hint})"
         super().__init__(msg)

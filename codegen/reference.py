@@ -42,6 +42,7 @@ import numpy as np
 from codegen.errors import InputError
 from codegen.model import tofsearch
 from codegen.model import library_options
+from codegen.model.diagnose import explain_unreachable
 from codegen.model.canonical import CLARABEL_TIGHT
 from codegen.model.policy import (ERROR_SLACK_ABS, ERROR_SLACK_REL, MERIT_MEETS_TARGET, NEARBY_TOF_STEPS,
                                   PROBE_TOLERANCE, RESERVE_STEPS, RESERVE_STEPS_MAX)
@@ -88,9 +89,10 @@ def validate_state(vehicle: Vehicle, position_m, velocity_mps, mass_kg, time_of_
             raise InputError(name, vec, "must have three components")
         for i, x in enumerate(arr):
             if not math.isfinite(x):
-                raise InputError(f"{name}[{i}]", x, "must be finite")
+                raise InputError(f"{name}[{i}]", float(x), "must be finite")
     if not (isinstance(mass_kg, (int, float)) and math.isfinite(mass_kg)):
-        raise InputError("mass_kg", mass_kg, "must be a finite number")
+        raise InputError("mass_kg", float(mass_kg) if isinstance(mass_kg, (int, float)) else mass_kg,
+                         "must be a finite number")
     if not vehicle.mass_dry_kg < mass_kg <= vehicle.mass_wet_kg:
         raise InputError("mass_kg", mass_kg,
                          f"must lie in (mass_dry_kg, mass_wet_kg] = "
@@ -281,6 +283,10 @@ class ReferenceSolver:
                 met = found.phase == "target" or \
                     found.payload_best.terminal_error <= MERIT_MEETS_TARGET
                 traj = self._finish(run, found.t_best, met, fallback, planning, nearby=True)
+        if traj.status == UNREACHABLE:
+            traj.message = explain_unreachable(self.vehicle, position_m, velocity_mps, mass_kg,
+                                               time_of_flight_s, target_m, velocity_target_mps,
+                                               throttle_max, traj.message)
         traj.iterations_total = spent["iters"]
         traj.iterations_max = spent["max"]
         traj.solves = spent["solves"]

@@ -181,7 +181,11 @@ def test_resume_after_kill_matches_uninterrupted_run(setup, straight_run):
     assert [r["case"] for r in recs] == list(range(CASES))
     assert stripped(recs) == stripped(expected)
     man = json.loads((run / erecords.MANIFEST_NAME).read_text())
-    assert sum(s["ran"] for s in man["sessions"]) == CASES - done_at_kill
+    # Both sessions are recorded, the killed one too (issue 18, item 15): it
+    # was written at its start and brought up to date as it ran.
+    killed, resumed = man["sessions"]
+    assert killed["finished"] is False and 0 <= killed["ran"] <= done_at_kill
+    assert resumed["finished"] is True and resumed["ran"] == CASES - done_at_kill
 
 
 def test_dask_cluster_gives_the_same_records(setup, straight_run):
@@ -332,14 +336,46 @@ def test_progress_line_shows_rate_and_eta():
     assert quiet.getvalue() == ""
 
 
+def whole_record(case):
+    """A record with every field a run writes (cases.run_case), as one JSON line."""
+    out = {"status": "target_met", "iterations": 9, "iterations_max": 9, "iterations_total": 90,
+           "solves": 10, "solve_time_s": 0.01}
+    out.update({k: None for k in erecords.OUTCOME_PRESENT})
+    rec = {"case": case, "inputs": {"position_m": [1.0, 0.0, 1.0], "velocity_mps": [0.0] * 3,
+                                    "mass_kg": 1.0, "time_of_flight_s": None, "thrust_derate": None},
+           "generated": out, "reference": None, "reference_why": [], "accuracy": None}
+    return json.dumps(rec).encode() + b"\n"
+
+
 def test_torn_last_line_is_dropped_and_damage_is_refused(tmp_path):
     path = tmp_path / "r.jsonl"
-    path.write_bytes(b'{"case": 0}\n{"case": 1}\n{"case": 2, "inp')
+    path.write_bytes(whole_record(0) + whole_record(1) + b'{"case": 2, "inp')
     assert [r["case"] for r in erecords.read_results(path)] == [0, 1]
-    assert path.read_bytes().endswith(b'{"case": 1}\n')
-    path.write_bytes(b'{"case": 0}\nnot json\n{"case": 2}\n')
+    assert path.read_bytes().endswith(whole_record(1))
+    path.write_bytes(whole_record(0) + b"not json\n" + whole_record(2))
     with pytest.raises(InputError, match="line 2"):
         erecords.read_results(path)
+
+
+@pytest.mark.parametrize("damage,words", [
+    (lambda: whole_record(0) + whole_record(1) + whole_record(0),
+     ["line 3", "records case 0 again (first on line 1)"]),
+    (lambda: whole_record(0) + b'{"case": 1}\n', ["line 2", "lacks 'inputs' (a stub record)"]),
+    (lambda: whole_record(0).replace(b'"iterations_max"', b'"iterations_mxa"'),
+     ["line 1", "generated.iterations_max"]),
+    (lambda: whole_record(0).replace(b'"fuel_kg"', b'"fuel_kgg"'), ["line 1", "generated.fuel_kg"]),
+    (lambda: whole_record(0).replace(b'"target_met"', b'"target_mett"'),
+     ["line 1", "generated.status", "not one of"]),
+])
+def test_duplicate_stub_and_corrupted_records_are_refused(tmp_path, damage, words):
+    # Issue 18, items 12 and 13: none of these comes from a run.
+    path = tmp_path / "r.jsonl"
+    path.write_bytes(damage())
+    with pytest.raises(InputError) as info:
+        erecords.read_results(path)
+    for w in words:
+        assert w in str(info.value)
+    assert "the results file is damaged" in str(info.value)
 
 
 def test_campaign_on_a_real_generated_tree(tmp_path):
@@ -383,3 +419,57 @@ def test_cli_seed_override_and_extending_a_run(tmp_path, setup, capsys):
     for r in recs:
         assert r["inputs"]["mass_kg"] == seeded.case(r["case"]).mass_kg
     assert json.loads((out / erecords.MANIFEST_NAME).read_text())["seed"] == 3
+
+
+@pytest.mark.parametrize("line,field", [
+    ('x = { distribution = "normal", mean = 0.0, std = 1e308 }', "position_m.x.std"),
+    ('x = { distribution = "uniform", low = -1e308, high = 1e308 }', "position_m.x.high"),
+    ('x = { distribution = "fixed", value = 1e300 }', "position_m.x.value"),
+])
+def test_overflowing_draws_are_bad_input(setup, tmp_path, capsys, line, field):
+    # Issue 18, item 12: such draws ended in tracebacks (JSON, matplotlib, CVXPY).
+    _, tree, _ = setup
+    disp = tmp_path / "d.toml"
+    disp.write_text(DISPERSIONS.replace('x = { distribution = "uniform", low = 500.0, high = 6000.0 }',
+                                        line))
+    code = cli.main(["envelope", str(tree), "--dispersions", str(disp), "--cases", "2",
+                     "--workers", "1", "--no-progress", "--out", str(tmp_path / "run")])
+    err = capsys.readouterr().err
+    assert code == 2 and field in err and "plausibility bound" in err and "Traceback" not in err
+    assert not (tmp_path / "run").exists()
+
+
+def test_a_record_of_another_draw_is_refused_on_resume(setup, straight_run, tmp_path, capsys):
+    _, tree, disp = setup
+    run, _, _ = straight_run
+    copy = tmp_path / "run"
+    shutil.copytree(run, copy)
+    lines = (copy / erecords.RESULTS_NAME).read_text().splitlines()
+    rec = json.loads(lines[2])
+    rec["inputs"]["mass_kg"] += 1.0
+    lines[2] = json.dumps(rec)
+    (copy / erecords.RESULTS_NAME).write_text("\n".join(lines) + "\n")
+    code = cli.main(["envelope", str(tree), "--dispersions", str(disp), "--cases", str(CASES),
+                     "--reference-every", str(EVERY), "--workers", "1", "--no-progress",
+                     "--out", str(copy)])
+    err = capsys.readouterr().err
+    assert code == 2 and f"case {rec['case']}" in err and "is not the draw of this case" in err
+
+
+def test_a_full_disk_is_a_message_not_a_traceback(setup, tmp_path, capsys, monkeypatch):
+    # Issue 18, item 12: a full disk ended in chained OSErrors.
+    import errno
+    _, tree, disp = setup
+
+    def full(fd, data):
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+    monkeypatch.setattr(erecords.os, "write", full)
+    code = cli.main(["envelope", str(tree), "--dispersions", str(disp), "--cases", "2",
+                     "--reference-every", "0", "--stand-out-iterations", "1000", "--workers", "1",
+                     "--no-progress", "--out", str(tmp_path / "run")])
+    err = capsys.readouterr().err
+    assert code == 2 and "No space left on device" in err and "Traceback" not in err
+    # The manifest is whole and names the session that was cut short.
+    man = json.loads((tmp_path / "run" / erecords.MANIFEST_NAME).read_text())
+    assert man["sessions"][-1]["finished"] is True and man["sessions"][-1]["ran"] == 0

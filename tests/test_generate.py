@@ -71,6 +71,10 @@ def test_builds_standalone_with_make_and_cmake(ecos_tree, tmp_path):
     assert "-Wall -Wextra -Werror" in r.stdout
     r = subprocess.run(["./build/pdg_plan_once"], cwd=build, capture_output=True, text=True)
     assert r.returncode == 0 and "status target_met" in r.stdout
+    # It says where it starts from (issue 18, item 2: the middle of the demo's
+    # envelope has 1875 kg, not the 1900 kg of the README's solve).
+    assert "from the middle of the envelope: position [1500.0 0.0 1500.0] m, velocity " \
+        "[-50.0 0.0 -40.0] m/s, mass 1875.0 kg" in r.stdout
     if shutil.which("cmake"):
         r = subprocess.run(["cmake", "-S", ".", "-B", "build-cmake"], cwd=build, capture_output=True,
                            text=True)

@@ -21,6 +21,7 @@ MAX_TOP_MODULES = 12
 #: Stage of a codegen module: the first matching prefix.
 STAGES = (
     ("codegen.cli", "cli"),
+    ("codegen.api", "api"),
     ("codegen.verify", "verify"),
     ("codegen.sim", "sim"),
     ("codegen.model", "model"),
@@ -51,7 +52,9 @@ MAY_IMPORT = {
     "verify": {"util", "model", "reference", "emit", "bind", "plot", "report"},
     "sim": {"util", "model", "reference", "emit", "bind", "plot", "report"},
     "cli": {"util", "model", "reference", "backends", "emit", "bind", "plot", "report",
-            "verify", "sim"},
+            "verify", "sim", "api"},
+    # The Python API (codegen/api.py) gathers the stages for scripts.
+    "api": {"util", "model", "reference", "backends", "emit", "bind"},
 }
 MODEL_MAY_IMPORT = {"codegen.errors", "codegen.fsutil"}
 

@@ -415,3 +415,27 @@ def test_settings_refused():
         Settings(rate_hz=10.0, step_s=0.05).check(v)
     with pytest.raises(InputError, match="--state mass"):
         default_settings(v, mass_kg=v.mass_wet_kg + 1.0).check(v)
+
+
+def test_workers_fly_the_same_runs(demo_batch, dry_tree, tmp_path):
+    # Issue 18, item 18: --workers, as pdgc envelope has; run i depends on
+    # (seed, i) alone, so the records are those of one worker but for the
+    # measured times.
+    errors, s, out_a, summary_a = demo_batch
+    summary = run_batch(dry_tree, 3, 11, errors, s, tmp_path / "w", workers=2)
+    assert _landing_stats(summary) == _landing_stats(summary_a)
+
+    def unmeasured(path):
+        recs = read_records(path / "runs.jsonl")
+
+        def strip(x):
+            if isinstance(x, dict):
+                return {k: strip(v) for k, v in x.items() if "time_s" not in k}
+            if isinstance(x, list):
+                return [strip(v) for v in x]
+            return x
+        return {k: strip(v) for k, v in recs.items()}
+
+    assert unmeasured(tmp_path / "w") == unmeasured(out_a)
+    with pytest.raises(InputError, match="--workers"):
+        run_batch(dry_tree, 3, 11, errors, s, tmp_path / "w0", workers=0)

@@ -63,6 +63,26 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print("pdgc: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # The reader went away (`pdgc solve --json | head`): nothing to say.
+        _silence_stdout()
+        return 1
+    except OSError as exc:
+        # A file the verb reads or writes: read-only, full disk, gone. The
+        # path and the system's reason, without a traceback; the outputs are
+        # written atomically, so what was there before is intact.
+        where = f" {exc.filename}" if getattr(exc, "filename", None) else ""
+        print(f"pdgc: error: cannot read or write{where}: {exc.strerror or exc}", file=sys.stderr)
+        return 2
+
+
+def _silence_stdout() -> None:
+    import os
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
 
 
 if __name__ == "__main__":

@@ -5,6 +5,8 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+from codegen.cli.common import int_at_least
+
 
 def register(subparsers) -> None:
     s = subparsers.add_parser(
@@ -20,7 +22,7 @@ def register(subparsers) -> None:
                    help="envelope campaign run on this tree, summarised in the record")
     s.add_argument("--out", default=None, metavar="PKG",
                    help="package directory (default: <DIR name>-handoff); PKG.tar.gz beside it")
-    s.add_argument("--check-cases", type=int, default=50, metavar="K",
+    s.add_argument("--check-cases", type=int_at_least("--check-cases", 0), default=50, metavar="K",
                    help="cases of `pdgc check` (generated against reference) summarised in the "
                         "record (default 50; 0: none)")
     s.add_argument("--no-checks", action="store_true",

@@ -62,6 +62,8 @@ def register(sub) -> None:
                    "speed_horizontal_max_mps)")
     s.add_argument("--crash-speed", type=finite_float("--crash-speed"), default=None, metavar="MPS",
                    help="a touchdown faster than this is a crash (default 5 m/s, common practice)")
+    s.add_argument("--workers", type=int_at_least("--workers", 1), default=1, metavar="K",
+                   help="local worker processes (default 1); the records do not depend on it")
     s.add_argument("--quiet", action="store_true", help="no line per run")
     s.set_defaults(func=run)
 
@@ -115,7 +117,7 @@ def run(args) -> int:
 
     try:
         summary = run_batch(args.dir, args.runs, args.seed, errors, settings, args.out,
-                            progress=progress, solver=solver)
+                            progress=progress, solver=solver, workers=args.workers)
     finally:
         bar.close()
 

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import sys
 
-from codegen.cli.common import parse_state, parse_vector3, positive_int, print_table
+from codegen.cli.common import finite_float, parse_state, parse_vector3, positive_int, print_table
 from codegen.errors import InputError
-from codegen.model.trajectory import BEST_REACHABLE, LIMITS_VIOLATED
+from codegen.model.trajectory import INPUT_REFUSED, LIMITS_VIOLATED
 
 #: The horizon when --horizon is not given.
 DEFAULT_HORIZON = 50
@@ -14,10 +14,13 @@ DEFAULT_HORIZON = 50
 
 def register(sub) -> None:
     s = sub.add_parser("solve", help="plan one descent (reference solve, or a generated solver)")
-    s.add_argument("vehicle")
+    s.add_argument("vehicle", help="vehicle file (TOML); its [envelope] is optional here")
     s.add_argument("--state", required=True, help="X,Y,Z,VX,VY,VZ,MASS in m, m/s, kg")
-    s.add_argument("--tof", type=float, default=None, help="time of flight [s]; searched if absent")
-    s.add_argument("--horizon", type=positive_int("--horizon"), default=None)
+    s.add_argument("--tof", type=finite_float("--tof"), default=None,
+                   help="time of flight [s]; searched if absent")
+    s.add_argument("--horizon", type=positive_int("--horizon"), default=None,
+                   help=f"number of intervals N (default {DEFAULT_HORIZON}; with --solver-dir, "
+                        "the tree's)")
     s.add_argument("--target", default=None, help="X,Y,Z of the landing target [m]")
     s.add_argument("--solver-dir", default=None,
                    help="use the generated solver in this tree instead of the reference")
@@ -28,18 +31,29 @@ def register(sub) -> None:
                    help="with --tof: the highest throttle the plan may use when the target is "
                         "out of reach at the vehicle's throttle_max (a re-plan's reserve)")
     s.add_argument("--json", action="store_true", help="print one JSON object")
-    s.add_argument("--plot", default=None, metavar="FILE.png")
+    s.add_argument("--out", default=None, metavar="FILE",
+                   help="also write the plan to FILE: .json, .csv (one row per node) or .mat "
+                        "(MATLAB), by its suffix")
+    s.add_argument("--plot", default=None, metavar="FILE.png",
+                   help="picture of the plan (trajectory, 3-D view, throttle, speed)")
     s.set_defaults(func=run)
 
 
 def run(args) -> int:
+    """Exit code: 0 a plan was found (a degraded one warns on stderr), 1 none
+    was (the message says why), 2 bad input."""
     from codegen.model.analysis import margins
+    from codegen.model.export import FORMATS
     from codegen.model.vehicle import load_vehicle
     from codegen.reference import ReferenceSolver
 
     horizon_given = args.horizon is not None
     horizon = args.horizon if horizon_given else DEFAULT_HORIZON
-    vehicle = load_vehicle(args.vehicle)
+    if args.out is not None:
+        from pathlib import Path
+        if Path(args.out).suffix.lower() not in FORMATS:
+            raise InputError("--out", args.out, "must end in " + ", ".join(FORMATS))
+    vehicle = load_vehicle(args.vehicle, require_envelope=False)
     for w in vehicle.warnings:
         print(f"pdgc: warning: {w}", file=sys.stderr)
     pos, vel, mass = parse_state(args.state)
@@ -51,17 +65,25 @@ def run(args) -> int:
             raise InputError("--horizon", horizon,
                              f"the generated solver in {args.solver_dir} has horizon {solver.horizon}")
     else:
-        solver = ReferenceSolver(vehicle, horizon)
+        # A vehicle file without [envelope] plans from its start state alone.
+        solver = ReferenceSolver(vehicle.at_state(pos, vel, mass), horizon)
     traj = solver.solve(pos, vel, mass, args.tof, target, fallback=not args.no_fallback,
                         reserve_throttle_max=args.reserve_throttle)
-    if traj.status == "input_refused":
-        raise InputError("input", traj.message, "refused by the solver")
-    if traj.status == BEST_REACHABLE:
+    if traj.status == INPUT_REFUSED:
+        print(f"pdgc: error: {traj.message}", file=sys.stderr)
+        return 2
+    if traj.degraded:
         print(f"pdgc: warning: {traj.message}", file=sys.stderr)
+    elif not traj.solved:
+        print(f"pdgc: {traj.status}: {traj.message}", file=sys.stderr)
     if args.json:
         print(traj.to_json())
     else:
         print_table(_rows(traj, margins(traj, vehicle, target)))
+    if args.out:
+        traj.save(args.out)
+        if not args.json:
+            print(f"  plan written to {args.out}")
     if args.plot:
         if traj.solved:
             from codegen.plot import plot_trajectory
@@ -74,7 +96,7 @@ def run(args) -> int:
 
 
 def _rows(traj, m) -> list:
-    rows = [("status", traj.status)]
+    rows = [("status", traj.status + ("  (DEGRADED: see the message)" if traj.degraded else ""))]
     if traj.message:
         rows.append(("message", traj.message))
     if traj.solved or traj.status == LIMITS_VIOLATED:

@@ -88,6 +88,14 @@ class Trajectory:
         return self.status in SOLVED
 
     @property
+    def degraded(self) -> bool:
+        """A plan was handed out, but not the plain one asked for: the best
+        reachable plan (the target out of reach), or a target plan that
+        needed a remedy its ``message`` names (relaxed solver tolerances, a
+        nearby time of flight, the engine's reserve, a budget). Callers warn."""
+        return self.solved and (self.status != TARGET_MET or bool(self.message))
+
+    @property
     def terminal_miss_m(self) -> float:
         """Horizontal distance of the plan's last node from the target."""
         return float(np.hypot(*self.terminal_position_error_m[:2]))
@@ -143,6 +151,7 @@ class Trajectory:
             "solve_time_s": self.solve_time_s,
             "tightness_gap": num(self.tightness_gap),
             "message": self.message,
+            "degraded": self.degraded,
             "plan_mode": self.plan_mode,
             "throttle_limit": num(self.throttle_limit),
             "terminal_position_error_m": vec(self.terminal_position_error_m),
@@ -161,3 +170,13 @@ class Trajectory:
 
     def to_json(self) -> str:
         return json.dumps(self.to_dict())
+
+    def to_csv(self) -> str:
+        """One row per node (codegen/model/export.py says the columns)."""
+        from codegen.model.export import to_csv
+        return to_csv(self)
+
+    def save(self, path):
+        """Write the plan to ``path``: .json, .csv or .mat (MATLAB), atomically."""
+        from codegen.model.export import save
+        return save(self, path)

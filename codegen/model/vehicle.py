@@ -11,9 +11,10 @@ warnings on the loaded :class:`Vehicle`.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from codegen.errors import InputError
+from codegen.model import plausible
 from codegen.fsutil import read_toml
 from codegen.errors import finite_number as _number
 from codegen.errors import suggest_key as _suggest
@@ -108,7 +109,9 @@ class Vehicle:
     glide_slope_deg: float
     speed_max_mps: float
     gravity_mps2: float
-    envelope: Envelope
+    #: None when the file has no [envelope]: enough to plan (``pdgc solve``,
+    #: see ``at_state``), not to generate, check or run campaigns.
+    envelope: Envelope | None
     touchdown: Touchdown = Touchdown()
     source_sha256: str = ""
     warnings: tuple = field(default=(), compare=False)
@@ -131,9 +134,31 @@ class Vehicle:
     def gravity_vector(self) -> tuple:
         return (0.0, 0.0, -self.gravity_mps2)
 
+    def at_state(self, position_m, velocity_mps, mass_kg) -> "Vehicle":
+        """This vehicle, with the one-point envelope of a start state when it
+        has no [envelope] (the problem's scaling needs a length: the start's
+        largest coordinate, at least 1 m). A vehicle with an envelope is
+        returned as it is."""
+        if self.envelope is not None:
+            return self
+        pos = tuple(float(x) for x in position_m)
+        if max(abs(x) for x in pos) < 1.0:
+            pos = (pos[0], pos[1], 1.0)
+        vel = tuple(float(x) for x in velocity_mps)
+        mass = min(max(float(mass_kg), self.mass_dry_kg), self.mass_wet_kg)
+        return replace(self, envelope=Envelope(pos, pos, vel, vel, mass, mass))
+
+    def require_envelope(self, what: str) -> Envelope:
+        """The envelope, or an InputError saying ``what`` needs it."""
+        if self.envelope is None:
+            raise InputError("envelope", None, f"missing table [envelope] (box of initial "
+                                               f"states): {what} needs it")
+        return self.envelope
+
     def as_dict(self) -> dict:
         out = {k: getattr(self, k) for k in VEHICLE_KEYS}
-        out["envelope"] = {k: getattr(self.envelope, k) for k in ENVELOPE_KEYS}
+        if self.envelope is not None:
+            out["envelope"] = {k: getattr(self.envelope, k) for k in ENVELOPE_KEYS}
         out["touchdown"] = {k: getattr(self.touchdown, k) for k in TOUCHDOWN_KEYS}
         return out
 
@@ -153,8 +178,35 @@ def _check_keys(table: dict, known: dict, prefix: str) -> None:
             raise InputError(prefix + key, None, f"missing required key ({desc})")
 
 
-def parse_vehicle(data: dict, source_sha256: str = "") -> Vehicle:
-    """Validate a parsed TOML document and return a :class:`Vehicle`."""
+def _parse_envelope(env: dict, v: dict) -> dict:
+    e = {}
+    for k in ("position_min_m", "position_max_m", "velocity_min_mps", "velocity_max_mps"):
+        e[k] = _vector3("envelope." + k, env[k])
+    for lo, hi in (("position_min_m", "position_max_m"), ("velocity_min_mps", "velocity_max_mps")):
+        for i in range(3):
+            if e[lo][i] > e[hi][i]:
+                raise InputError(f"envelope.{lo}[{i}]", e[lo][i],
+                                 f"must be <= envelope.{hi}[{i}] = {e[hi][i]!r}")
+    if e["position_min_m"][2] <= 0.0:
+        raise InputError("envelope.position_min_m[2]", e["position_min_m"][2],
+                         "initial altitude must be > 0 (above the target)")
+    for k in ("mass_min_kg", "mass_max_kg"):
+        e[k] = _number("envelope." + k, env[k]) if k in env else v["mass_wet_kg"]
+        if not v["mass_dry_kg"] < e[k] <= v["mass_wet_kg"]:
+            raise InputError("envelope." + k, e[k],
+                             f"must lie in (mass_dry_kg, mass_wet_kg] = "
+                             f"({v['mass_dry_kg']!r}, {v['mass_wet_kg']!r}]")
+    if e["mass_min_kg"] > e["mass_max_kg"]:
+        raise InputError("envelope.mass_min_kg", e["mass_min_kg"],
+                         f"must be <= envelope.mass_max_kg = {e['mass_max_kg']!r}")
+
+    return e
+
+
+def parse_vehicle(data: dict, source_sha256: str = "", require_envelope: bool = True) -> Vehicle:
+    """Validate a parsed TOML document and return a :class:`Vehicle`.
+    ``require_envelope=False``: a file without [envelope] is accepted (its
+    Vehicle's envelope is None), for planning only."""
     top = dict(data)
     env = top.pop("envelope", None)
     td = top.pop("touchdown", {})
@@ -162,11 +214,14 @@ def parse_vehicle(data: dict, source_sha256: str = "") -> Vehicle:
     if not isinstance(td, dict):
         raise InputError("touchdown", td, "must be a table")
     _check_keys(td, TOUCHDOWN_KEYS, "touchdown.")
-    if env is None:
-        raise InputError("envelope", None, "missing required table [envelope] (box of initial states)")
-    if not isinstance(env, dict):
+    if env is None and require_envelope:
+        raise InputError("envelope", None, "missing required table [envelope] (box of initial "
+                                           "states): generate, check, envelope, simulate and "
+                                           "handoff need it; pdgc solve does not")
+    if env is not None and not isinstance(env, dict):
         raise InputError("envelope", env, "must be a table")
-    _check_keys(env, ENVELOPE_KEYS, "envelope.")
+    if env is not None:
+        _check_keys(env, ENVELOPE_KEYS, "envelope.")
 
     name = top["name"]
     if not isinstance(name, str) or not name or not all(c.isalnum() or c in "-_" for c in name):
@@ -193,26 +248,8 @@ def parse_vehicle(data: dict, source_sha256: str = "") -> Vehicle:
     if not 0.0 <= v["glide_slope_deg"] < 90.0:
         raise InputError("glide_slope_deg", v["glide_slope_deg"], "must lie in [0, 90)")
 
-    e = {}
-    for k in ("position_min_m", "position_max_m", "velocity_min_mps", "velocity_max_mps"):
-        e[k] = _vector3("envelope." + k, env[k])
-    for lo, hi in (("position_min_m", "position_max_m"), ("velocity_min_mps", "velocity_max_mps")):
-        for i in range(3):
-            if e[lo][i] > e[hi][i]:
-                raise InputError(f"envelope.{lo}[{i}]", e[lo][i],
-                                 f"must be <= envelope.{hi}[{i}] = {e[hi][i]!r}")
-    if e["position_min_m"][2] <= 0.0:
-        raise InputError("envelope.position_min_m[2]", e["position_min_m"][2],
-                         "initial altitude must be > 0 (above the target)")
-    for k in ("mass_min_kg", "mass_max_kg"):
-        e[k] = _number("envelope." + k, env[k]) if k in env else v["mass_wet_kg"]
-        if not v["mass_dry_kg"] < e[k] <= v["mass_wet_kg"]:
-            raise InputError("envelope." + k, e[k],
-                             f"must lie in (mass_dry_kg, mass_wet_kg] = "
-                             f"({v['mass_dry_kg']!r}, {v['mass_wet_kg']!r}]")
-    if e["mass_min_kg"] > e["mass_max_kg"]:
-        raise InputError("envelope.mass_min_kg", e["mass_min_kg"],
-                         f"must be <= envelope.mass_max_kg = {e['mass_max_kg']!r}")
+    e = None if env is None else _parse_envelope(env, v)
+    warnings = plausible.check(v, e)
 
     touchdown = {}
     for k, default in TOUCHDOWN_DEFAULTS.items():
@@ -220,7 +257,6 @@ def parse_vehicle(data: dict, source_sha256: str = "") -> Vehicle:
         if not touchdown[k] > 0.0:
             raise InputError("touchdown." + k, touchdown[k], "must be > 0")
 
-    warnings = []
     cant = math.cos(math.radians(v["engine_cant_deg"]))
     hover_n = v["mass_dry_kg"] * v["gravity_mps2"]
     upper_n = v["throttle_max"] * v["thrust_max_n"] * cant
@@ -229,12 +265,13 @@ def parse_vehicle(data: dict, source_sha256: str = "") -> Vehicle:
             f"thrust_max_n = {v['thrust_max_n']!r}: net thrust at throttle_max "
             f"({upper_n:.6g} N) cannot hover the dry mass ({hover_n:.6g} N): "
             "no soft landing is possible")
-    return Vehicle(name=name, envelope=Envelope(**e), touchdown=Touchdown(**touchdown),
+    return Vehicle(name=name, envelope=None if e is None else Envelope(**e), touchdown=Touchdown(**touchdown),
                    source_sha256=source_sha256,
                    warnings=tuple(warnings), **v)
 
 
-def load_vehicle(path) -> Vehicle:
-    """Read and validate a vehicle file. Raises InputError on any fault."""
+def load_vehicle(path, require_envelope: bool = True) -> Vehicle:
+    """Read and validate a vehicle file. Raises InputError on any fault.
+    ``require_envelope=False``: [envelope] may be absent (planning only)."""
     data, digest = read_toml(path, "vehicle file")
-    return parse_vehicle(data, digest)
+    return parse_vehicle(data, digest, require_envelope)

@@ -57,12 +57,61 @@ def batch_identity(solver_dir, solver, errors: ErrorModel, settings: Settings, s
     }
 
 
+_worker = {}
+
+
+def _worker_init(solver_dir, errors, settings, seed) -> None:
+    _worker.update(solver=load_guidance_solver(solver_dir), errors=errors, settings=settings,
+                   seed=seed)
+
+
+def _fly_timed(solver, errors, settings, seed, i) -> dict:
+    t0 = time.perf_counter()
+    rec = fly(solver, errors, settings, seed, i)
+    rec["wall_time_s"] = round(time.perf_counter() - t0, 4)
+    return rec
+
+
+def _worker_fly(i: int) -> dict:
+    w = _worker
+    return _fly_timed(w["solver"], w["errors"], w["settings"], w["seed"], i)
+
+
+def _flights(solver_dir, solver, errors, settings, seed, todo, workers):
+    """Records of the runs ``todo``, in the order they finish. One worker:
+    in this process. More: a pool of fresh interpreters (spawn), each
+    opening the tree itself; run i depends on (seed, i) alone, so a record
+    does not depend on the worker that flew it (tests/test_simulate.py)."""
+    if workers <= 1 or len(todo) <= 1:
+        for i in todo:
+            yield _fly_timed(solver, errors, settings, seed, i)
+        return
+    import multiprocessing
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+    from collections import deque
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
+                               initializer=_worker_init,
+                               initargs=(str(solver_dir), errors, settings, seed))
+    queue, running = deque(todo), set()
+    try:
+        while queue or running:
+            while queue and len(running) < 2 * workers:
+                running.add(pool.submit(_worker_fly, queue.popleft()))
+            done, running = wait(running, return_when=FIRST_COMPLETED)
+            for fut in done:
+                yield fut.result()
+    finally:
+        pool.shutdown(wait=not running, cancel_futures=True)
+
+
 def run_batch(solver_dir, runs: int, seed: int, errors: ErrorModel, settings: Settings,
-              out_dir, progress=None, solver=None) -> dict:
+              out_dir, progress=None, solver=None, workers: int = 1) -> dict:
     """Fly runs 0..runs-1 that ``out_dir`` does not hold yet; write the summary
-    and the report; return the summary."""
+    and the report; return the summary. ``workers``: local processes."""
     if isinstance(runs, bool) or not isinstance(runs, int) or runs < 1:
         raise InputError("--runs", runs, "must be an integer >= 1")
+    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+        raise InputError("--workers", workers, "must be an integer >= 1")
     solver = solver or load_guidance_solver(solver_dir)
     vehicle = solver.vehicle
     settings.check(vehicle)
@@ -102,10 +151,8 @@ def run_batch(solver_dir, runs: int, seed: int, errors: ErrorModel, settings: Se
     if progress:
         progress("start", {"runs": runs, "done": len(done), "todo": len(todo)})
     with open(rec_path, "ab") as fh:
-        for i in todo:
-            t0 = time.perf_counter()
-            rec = fly(solver, errors, settings, seed, i)
-            rec["wall_time_s"] = round(time.perf_counter() - t0, 4)
+        for rec in _flights(solver_dir, solver, errors, settings, seed, todo, workers):
+            i = int(rec["run"])
             fh.write((json.dumps(rec, separators=(",", ":")) + "\n").encode("utf-8"))
             fh.flush()
             os.fsync(fh.fileno())

@@ -47,6 +47,7 @@ from scipy import special
 
 from codegen.errors import InputError
 from codegen.fsutil import read_toml
+from codegen.model import plausible
 from codegen.errors import finite_number as _number
 from codegen.errors import suggest_key as _suggest
 
@@ -269,6 +270,41 @@ def _require_support(where: str, dist: Distribution, lo: float, hi: float, rule:
         raise InputError(f"{where}.{key}", getattr(dist, key), rule)
 
 
+#: The smallest uniform a draw can see is 1e-300 (Distribution.draw), and
+#: -ndtri(1e-300) < 38: the widest normal draw is mean +- 38 std.
+NORMAL_REACH_STD = 38.0
+#: Largest magnitude a drawn quantity may reach: the vehicle file's
+#: plausibility bounds (codegen/model/plausible.py) for positions and
+#: velocities; for a time of flight, 1e6 s (11 days: powered descent lasts
+#: seconds to minutes, common practice). Beyond them a draw overflowed the
+#: records (JSON has no inf), the figures and the solvers.
+MAGNITUDE_MAX = {"position_m": plausible.POSITION_HARD_M,
+                 "velocity_mps": plausible.BOUNDS["speed_max_mps"][1],
+                 "mass_kg": plausible.BOUNDS["mass_wet_kg"][1],
+                 "time_of_flight_s": 1e6, "thrust_derate": 1.0}
+
+
+def _require_magnitude(where: str, dist: Distribution, limit: float) -> None:
+    """Every value the distribution can draw lies within +-limit."""
+    if dist.kind == "fixed":
+        widest, key = abs(dist.value), "value"
+    elif dist.kind == "uniform":
+        widest, key = max(abs(dist.low), abs(dist.high)), "low" if abs(dist.low) > abs(dist.high) \
+            else "high"
+    else:
+        widest, key = abs(dist.mean) + NORMAL_REACH_STD * dist.std, "std"
+        if dist.kind == "truncated_normal" and math.isfinite(widest):
+            widest, key = max(abs(dist.low), abs(dist.high)), "low" if abs(dist.low) > \
+                abs(dist.high) else "high"
+    if not widest <= limit:
+        shown = getattr(dist, key)
+        rule = (f"draws must stay within +-{limit:g} (plausibility bound); this distribution "
+                f"reaches {widest:.3g}")
+        if key == "std":
+            rule += f" (|mean| + {NORMAL_REACH_STD:g} std, the widest normal draw)"
+        raise InputError(f"{where}.{key}", shown, rule)
+
+
 def parse_dispersions(data: dict, vehicle=None, source_sha256: str = "") -> Dispersions:
     """Validate a parsed dispersion document.
 
@@ -299,10 +335,13 @@ def parse_dispersions(data: dict, vehicle=None, source_sha256: str = "") -> Disp
                 raise InputError(f"{table}.{a}", None, "missing component: give a distribution "
                                  "(fixed, uniform, normal or truncated_normal)")
         vectors[table] = tuple(parse_distribution(f"{table}.{a}", t[a]) for a in AXES)
+        for a, dist in zip(AXES, vectors[table]):
+            _require_magnitude(f"{table}.{a}", dist, MAGNITUDE_MAX[table])
     _require_support("position_m.up", vectors["position_m"][2], 0.0, math.inf,
                      "initial altitude must be > 0 (above the target)")
 
     mass = parse_distribution("mass_kg", data["mass_kg"])
+    _require_magnitude("mass_kg", mass, MAGNITUDE_MAX["mass_kg"])
     if vehicle is not None:
         _require_support("mass_kg", mass, vehicle.mass_dry_kg, vehicle.mass_wet_kg,
                          f"must lie in (mass_dry_kg, mass_wet_kg] = "
@@ -318,6 +357,7 @@ def parse_dispersions(data: dict, vehicle=None, source_sha256: str = "") -> Disp
         tof = None
     else:
         tof = parse_distribution("time_of_flight_s", tof_raw)
+        _require_magnitude("time_of_flight_s", tof, MAGNITUDE_MAX["time_of_flight_s"])
         _require_support("time_of_flight_s", tof, 0.0, math.inf, "must be > 0")
 
     derate = None

@@ -20,23 +20,75 @@ RESULTS_NAME = "results.jsonl"
 MANIFEST_NAME = "manifest.json"
 
 
+#: What every record holds (cases.run_case), and the fields of an outcome
+#: (cases.outcome) the summary reads: a record without them is a stub.
+RECORD_FIELDS = {"case": int, "inputs": dict, "generated": dict, "reference": (dict, type(None)),
+                 "reference_why": list, "accuracy": (dict, type(None))}
+INPUT_FIELDS = ("position_m", "velocity_mps", "mass_kg", "time_of_flight_s", "thrust_derate")
+OUTCOME_FIELDS = {"status": str, "iterations": int, "iterations_max": int, "iterations_total": int,
+                  "solves": int, "solve_time_s": (int, float)}
+#: Fields of an outcome that may be null but must be there.
+OUTCOME_PRESENT = ("fuel_kg", "time_of_flight_s", "landing_miss_m", "objective", "message",
+                   "terminal_error", "throttle_limit", "flyable", "worst_check")
+_DAMAGED = ("; the results file is damaged: remove the line (its case is then solved again) "
+            "or start a new --out")
+
+
+def record_fault(rec) -> str:
+    """What is wrong with one parsed record ('' when it is whole)."""
+    from codegen.model.trajectory import STATUSES
+    if not isinstance(rec, dict):
+        return "is not a case record (a JSON object)"
+    for key, kind in RECORD_FIELDS.items():
+        if key not in rec:
+            return f"lacks '{key}' (a stub record)"
+        if not isinstance(rec[key], kind) or isinstance(rec[key], bool):
+            return f"has '{key}' = {rec[key]!r}, not a {getattr(kind, '__name__', 'valid value')}"
+    if rec["case"] < 0:
+        return f"has case {rec['case']} (must be >= 0)"
+    for key in INPUT_FIELDS:
+        if key not in rec["inputs"]:
+            return f"lacks 'inputs.{key}'"
+    for side in ("generated", "reference"):
+        out = rec[side]
+        if out is None:
+            continue
+        for key, kind in OUTCOME_FIELDS.items():
+            if not isinstance(out.get(key), kind) or isinstance(out.get(key), bool):
+                return f"has '{side}.{key}' = {out.get(key)!r} (missing or not a number)"
+        for key in OUTCOME_PRESENT:
+            if key not in out:
+                return f"lacks '{side}.{key}'"
+        if out["status"] not in STATUSES:
+            return f"has '{side}.status' = {out['status']!r}, not one of {', '.join(STATUSES)}"
+    return ""
+
+
 def read_results(path) -> list:
     """Records of ``results.jsonl``; a torn last line is cut off the file.
 
     A line that ends with a newline was written whole (one write per record);
     only the text after the last newline can be torn by a kill, and it is
-    removed so that the next append starts on a fresh line.
+    removed so that the next append starts on a fresh line. Every record is
+    checked (record_fault) and a case recorded twice is refused: neither can
+    come from a run, so the file was edited or damaged.
     """
-    records = []
+    records, lines = [], {}
     for n, line in complete_lines(path):
+        shown = line[:60].decode("utf-8", "replace")
         try:
             rec = json.loads(line)
-        except json.JSONDecodeError as exc:
-            raise InputError(f"{path}: line {n}", line[:60].decode("utf-8", "replace"),
-                             f"is not a JSON record ({exc.msg}); the results file is damaged") from None
-        if not isinstance(rec, dict) or not isinstance(rec.get("case"), int):
-            raise InputError(f"{path}: line {n}", line[:60].decode("utf-8", "replace"),
-                             "is not a case record")
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            raise InputError(f"{path}: line {n}", shown,
+                             f"is not a JSON record ({getattr(exc, 'msg', exc)})" + _DAMAGED) from None
+        fault = record_fault(rec)
+        if fault:
+            raise InputError(f"{path}: line {n}", shown, fault + _DAMAGED)
+        if rec["case"] in lines:
+            raise InputError(f"{path}: line {n}", shown,
+                             f"records case {rec['case']} again (first on line "
+                             f"{lines[rec['case']]})" + _DAMAGED)
+        lines[rec["case"]] = n
         records.append(rec)
     return records
 

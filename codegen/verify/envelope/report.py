@@ -12,6 +12,17 @@ from codegen.verify.envelope.records import load_run
 from codegen.verify.envelope.summary import WORST_CASES, summarise
 
 
+def _envelope_of(manifest: dict):
+    """The [envelope] of the run's vehicle (the tree's copy), or None when the
+    tree is no longer where the run found it (the map then has no box)."""
+    from codegen.errors import InputError
+    from codegen.model.vehicle import load_vehicle
+    try:
+        return load_vehicle(Path(manifest["solver_dir"]) / "vehicle.toml").envelope
+    except (InputError, OSError, KeyError):
+        return None
+
+
 def render_report(summary: dict, records: list, manifest: dict) -> str:
     """report.html as text: self-contained, images inline (templates/reports/envelope.html.j2)."""
     from codegen.report import render
@@ -19,7 +30,7 @@ def render_report(summary: dict, records: list, manifest: dict) -> str:
 
     g = summary["generated"]
     figs = figures(records, g.get("iterations_per_solve_cap"),
-                   g.get("iterations_per_call_bound")) if records else {}
+                   g.get("iterations_per_call_bound"), _envelope_of(manifest)) if records else {}
 
     def stat_row(label, st, scale=1.0, unit=""):
         if st is None:

@@ -29,6 +29,23 @@ STAND_OUT_FACTOR = 1.5
 PROGRESS_LINE_EVERY_S = 10.0
 
 
+#: A running session rewrites its entry in the manifest this often.
+SESSION_UPDATE_S = 5.0
+
+
+def check_inputs(records: list, dispersions, results_path) -> None:
+    """Each record's inputs are the draw of its case (a function of the seed
+    and the index alone): a record from another run or an edited one is
+    refused rather than summarised as this run's."""
+    for rec in records:
+        want = json.loads(json.dumps(dispersions.case(rec["case"]).as_dict()))
+        if rec["inputs"] != want:
+            raise InputError(f"{results_path}: case {rec['case']}", rec["inputs"],
+                             "is not the draw of this case from the run's seed and dispersions "
+                             "(a record from another run, or edited); remove the line or start "
+                             "a new --out")
+
+
 #: Manifest fields that must not change when a run is resumed.
 IDENTITY = ("solver_dir", "solver_manifest_sha256", "vehicle_sha256", "seed", "dispersions",
             "reference_every", "stand_out_iterations")
@@ -161,6 +178,7 @@ def run_campaign(run_dir, manifest: dict, workers: int = 1, scheduler: str | Non
     todo = [i for i in range(manifest["cases"]) if i not in done]
     from codegen.verify.dispersions import parse_dispersions
     disp = parse_dispersions(_as_file_dict(manifest["dispersions"]))
+    check_inputs(records, disp, results)
     ctx = CaseContext(solver_dir=manifest["solver_dir"], dispersions=disp,
                       reference_every=manifest["reference_every"],
                       stand_out_iterations=int(manifest["stand_out_iterations"] or 0))
@@ -173,11 +191,29 @@ def run_campaign(run_dir, manifest: dict, workers: int = 1, scheduler: str | Non
     ran = [0]
     engine = f"dask scheduler {scheduler}" if scheduler else \
         f"local pool, {workers} worker{'s' if workers != 1 else ''}"
+    # The session is in the manifest from its start and brought up to date
+    # every SESSION_UPDATE_S, so a session that is killed still counts (its
+    # wall time short by at most that much); "finished" says which ended.
+    session = {"started_utc": started, "engine": engine, "ran": 0, "wall_s": 0.0,
+               "finished": False}
+    last_update = [t0]
+
+    def write_session(final=False):
+        session["ran"], session["wall_s"] = ran[0], time.monotonic() - t0
+        session["finished"] = final
+        write_atomic(run_dir / MANIFEST_NAME, json.dumps(manifest, indent=2) + "\n")
+        last_update[0] = time.monotonic()
+
+    if todo:
+        manifest.setdefault("sessions", []).append(session)
+        write_session()
     try:
         def on_record(rec):
             log.append(rec)
             ran[0] += 1
             bar.update(1)
+            if time.monotonic() - last_update[0] >= SESSION_UPDATE_S:
+                write_session()
 
         if todo:
             if scheduler:
@@ -188,9 +224,7 @@ def run_campaign(run_dir, manifest: dict, workers: int = 1, scheduler: str | Non
         log.close()
         bar.close()
         wall = time.monotonic() - t0
-        if ran[0]:
-            manifest.setdefault("sessions", []).append(
-                {"started_utc": started, "engine": engine, "ran": ran[0], "wall_s": wall})
-            write_atomic(run_dir / MANIFEST_NAME, json.dumps(manifest, indent=2) + "\n")
+        if todo:
+            write_session(final=True)
     return {"resumed_from": len(done), "ran": ran[0], "todo": len(todo), "duplicates": duplicates,
             "wall_s": wall, "engine": engine}

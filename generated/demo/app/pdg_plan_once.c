@@ -26,6 +26,10 @@ int main(void)
     pdg_status status;
     int k;
     pdg_guidance_config_init(&settings);
+    printf("from the middle of the envelope: position [%.1f %.1f %.1f] m, "
+           "velocity [%.1f %.1f %.1f] m/s, mass %.1f kg\n",
+           input.position_m[0], input.position_m[1], input.position_m[2],
+           input.velocity_mps[0], input.velocity_mps[1], input.velocity_mps[2], input.mass_kg);
     status = pdg_plan_descent(&work, &input, &settings, &plan);
     printf("status %s\n", pdg_status_name(status));
     if (status != PDG_TARGET_MET && status != PDG_BEST_REACHABLE) {
