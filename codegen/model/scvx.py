@@ -263,6 +263,10 @@ class BoosterReference:
         self.horizon = horizon
         self.pass_cap = pass_cap
         self.solver_options = dict(CLARABEL_TIGHT if solver_options is None else solver_options)
+        from codegen.model import library_options
+        from codegen.model.policy import PROBE_TOLERANCE
+        #: A search's probes: the reference's probe tolerance, no retries.
+        self.probe_options = library_options.clarabel(PROBE_TOLERANCE, iterations=200)
         self.scaling = Scaling.for_vehicle(vehicle)
         self.constants = Constants.of(vehicle, self.scaling)
         self.dynamics = ScaledDynamics(vehicle, self.scaling, self.constants)
@@ -385,12 +389,26 @@ class BoosterReference:
                 vals[f"b{i}{l}"] = sm[:, i, l]
 
     def _solve(self, vals):
+        """One pass's SOCP: at the tight tolerances, then, when those stall
+        short ("almost solved"), the reference's own retries
+        (codegen.reference.CLARABEL_RETRIES: 1e-8, 1e-7, then ECOS)."""
+        from codegen.reference import CLARABEL_RETRIES
         for name, p in self.params.items():
             p.value = vals[name]
+        status, msg, iters = self._solve_with("CLARABEL", self.solver_options)
+        if self.solver_options is not self.probe_options:
+            for label, solver, options in CLARABEL_RETRIES:
+                if status != "failed":
+                    break
+                status, msg, more = self._solve_with(solver, options)
+                iters += more
+        return status, msg, iters
+
+    def _solve_with(self, solver, options):
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", UserWarning)
-                self.problem.solve(solver="CLARABEL", warm_start=False, **self.solver_options)
+                self.problem.solve(solver=solver, warm_start=False, **options)
         except cp.error.SolverError as exc:
             return "failed", str(exc), 0
         st = self.problem.solver_stats
@@ -435,7 +453,7 @@ class BoosterReference:
         except InputError as exc:
             plan.message = str(exc)
             return plan
-        options = self.solver_options if tolerance is None else dict(tolerance)
+        options = self.solver_options if tolerance is None else tolerance
         saved, self.solver_options = self.solver_options, options
         try:
             return self._passes(plan, position_m, velocity_mps, mass_kg, float(time_of_flight_s),
@@ -557,8 +575,6 @@ class BoosterReference:
         if time_of_flight_s is not None:
             return self.solve_fixed(position_m, velocity_mps, mass_kg, time_of_flight_s,
                                     pad_position_m, pad_velocity_mps)
-        from codegen.model.policy import PROBE_TOLERANCE
-        from codegen.model import library_options
         from codegen.reference import validate_state
         t0 = time.perf_counter()
         try:
@@ -567,7 +583,7 @@ class BoosterReference:
         except InputError as exc:
             return BoosterPlan(status=INPUT_REFUSED, solver=self.name, horizon=self.horizon,
                                message=str(exc))
-        probe_options = library_options.clarabel(PROBE_TOLERANCE, iterations=200)
+        probe_options = self.probe_options
         spent = {"passes": 0, "iters": 0}
 
         def evaluate(t, mode):
