@@ -324,7 +324,7 @@ class BoosterReference:
         ap = self.approach
         if ap is not None and not math.isnan(ap.cone_half_angle_deg):
             tan_cone = math.tan(math.radians(ap.cone_half_angle_deg))
-            cons += [cp.SOC(rel[2, 1:n] / tan_cone + par("cone_off", n - 1), rel[:2, 1:n], axis=0)]
+            cons += [cp.SOC(tan_cone * rel[2, 1:n] + par("cone_off", n - 1), rel[:2, 1:n], axis=0)]
         if ap is not None and not math.isnan(ap.altitude_min_m):
             cons += [rel[2, 1:n] >= par("height_min", n - 1)]
         if self.rate_limit is not None:
