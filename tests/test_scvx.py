@@ -237,3 +237,22 @@ def test_bad_input_is_refused_without_a_solve(booster):
     assert p.status == "input_refused" and "mass_kg" in p.message
     p = BoosterReference(booster, 10).solve_fixed(*STATE, TOF_S, pad_velocity_mps=(1.0, math.nan, 0))
     assert p.status == "input_refused" and "velocity_target_mps[1]" in p.message
+
+
+def test_final_approach_cone_binds(booster):
+    # From 400 m off the pad the plan without a final approach comes in at
+    # 23 degrees from the vertical in its last 6 s (measured); with a 5 degree
+    # cone it keeps to 5 degrees, and pays a little fuel for it.
+    state = ([400.0, 0.0, 3000.0], [-30.0, 0.0, -250.0], 30000.0)
+    plans = []
+    for ap in (None, FinalApproach(duration_s=6.0, cone_half_angle_deg=5.0)):
+        p = BoosterReference(without(booster, final_approach=ap), 20).solve_fixed(*state, 22.0)
+        assert p.status == TARGET_MET, p.message
+        inside = (p.t_s >= 22.0 - 6.0 - 1e-9) & (p.t_s < 22.0 - 1e-9)
+        rel = p.position_m[inside] - p.target_m
+        plans.append((p, float(np.max(np.degrees(np.arctan2(
+            np.linalg.norm(rel[:, :2], axis=1), rel[:, 2]))))))
+    (free, free_angle), (coned, angle) = plans
+    assert free_angle > 10.0
+    assert angle <= 5.0 + 1e-4
+    assert coned.fuel_kg > free.fuel_kg
