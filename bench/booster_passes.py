@@ -20,6 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
+from codegen.booster import BoosterReference
 from codegen.model import scvx
 from codegen.model.vehicle import load_vehicle
 
@@ -36,7 +37,7 @@ def main(argv=None) -> int:
     v = load_vehicle(BOOSTER)
     env = v.envelope
     rng = np.random.default_rng(args.seed)
-    ref = scvx.BoosterReference(v, args.horizon)
+    ref = BoosterReference(v, args.horizon)
     outcomes = collections.Counter()
     passes, err_r, err_v, secs = [], [], [], []
     for _ in range(args.cases):

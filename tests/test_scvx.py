@@ -10,7 +10,7 @@ import pytest
 
 from codegen.model import scvx
 from codegen.model.drag import DragModel
-from codegen.model.scvx import BoosterReference
+from codegen.booster import BoosterReference
 from codegen.model.trajectory import ITERATIONS_EXHAUSTED, TARGET_MET, UNREACHABLE
 from codegen.model.vehicle import Booster, FinalApproach, load_vehicle
 from codegen.reference import ReferenceSolver

@@ -119,7 +119,7 @@ def _run_booster(args, vehicle, horizon, pos, vel, mass, pad, pad_velocity) -> i
     (codegen/model/scvx.py). No generated solver plans them yet, and the
     plan meets the pad or there is none (no best reachable plan)."""
     from codegen.model.analysis import margins
-    from codegen.model.scvx import BoosterReference
+    from codegen.booster import BoosterReference
     for option, given in (("--solver-dir", args.solver_dir),
                           ("--reserve-throttle", args.reserve_throttle)):
         if given is not None:
