@@ -105,6 +105,14 @@ def generate(vehicle_path, horizon: int, out_dir, backend: str = DEFAULT_BACKEND
         raise InputError("--horizon", horizon, "must be an integer from 2 to 1000")
     vehicle_path = Path(vehicle_path)
     vehicle = load_vehicle(vehicle_path)
+    if vehicle.booster is not None:
+        # The generated C solves the lander's program only (issue 19, item 4
+        # is the booster's); a tree that silently dropped the drag, the
+        # thrust-rate limit or the final approach would plan another vehicle.
+        raise InputError(str(vehicle_path), "[drag], [atmosphere], [final_approach] or "
+                         "thrust_rate_max_nps",
+                         "booster additions are planned by the reference only (pdgc solve); "
+                         "the generated C does not model them yet")
     vehicle_bytes = vehicle_path.read_bytes()
     be = get_backend(backend)
     if precision != "double" and backend != "native":

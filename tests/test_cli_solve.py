@@ -96,3 +96,39 @@ def test_check_on_a_vehicle_file_is_bad_input(capsys):
     assert main(["check", str(DEMO_VEHICLE), "--cases", "2"]) == 2
     err = capsys.readouterr().err
     assert "dir = " in err and "manifest.json" in err
+
+
+BOOSTER_VEHICLE = DEMO_VEHICLE.parent / "demo_booster.toml"
+BOOSTER_STATE = "100,0,3000,-10,0,-250,30000"
+
+
+def test_solve_booster_routes_to_scvx_reference(capsys):
+    assert main(["solve", str(BOOSTER_VEHICLE), "--state", BOOSTER_STATE, "--horizon", "12",
+                 "--tof", "20", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["solver"] == "reference-scvx" and d["status"] == "target_met"
+    assert d["convergence"] == "converged" and 1 < d["passes"] <= 15
+    assert max(abs(x) for x in d["predicted_position_error_m"]) < 1e-2
+
+
+def test_solve_moving_pad_on_the_lander(capsys):
+    assert main(["solve", str(DEMO_VEHICLE), "--state", STATE, "--horizon", "12", "--tof", "45",
+                 "--target", "10,0,0", "--target-velocity", "2,0,0", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["status"] == "target_met" and d["passes"] == 1
+    assert abs(d["position_m"][-1][0] - (10 + 2 * 45)) < 1e-6
+    assert abs(d["velocity_mps"][-1][0] - 2.0) < 1e-7
+
+
+@pytest.mark.parametrize("extra,field", [(["--solver-dir", "generated/demo"], "--solver-dir"),
+                                         (["--target-velocity", "1,2"], "--target-velocity")])
+def test_booster_bad_options_exit_2(extra, field, capsys):
+    code = main(["solve", str(BOOSTER_VEHICLE), "--state", BOOSTER_STATE, "--horizon", "10",
+                 "--tof", "20"] + extra)
+    assert code == 2 and field in capsys.readouterr().err
+
+
+def test_generate_refuses_booster_additions(tmp_path, capsys):
+    code = main(["generate", str(BOOSTER_VEHICLE), "--horizon", "10", "--out", str(tmp_path / "t")])
+    err = capsys.readouterr().err
+    assert code == 2 and "booster additions" in err and not (tmp_path / "t").exists()

@@ -27,6 +27,7 @@ STAGES = (
     ("codegen.model", "model"),
     ("codegen.backends", "backends"),
     ("codegen.reference", "reference"),
+    ("codegen.booster", "reference"),   # the SCvx reference (issue 19)
     ("codegen.emit", "emit"),
     ("codegen.bind", "bind"),
     ("codegen.plot", "plot"),

@@ -21,7 +21,11 @@ def register(sub) -> None:
     s.add_argument("--horizon", type=positive_int("--horizon"), default=None,
                    help=f"number of intervals N (default {DEFAULT_HORIZON}; with --solver-dir, "
                         "the tree's)")
-    s.add_argument("--target", default=None, help="X,Y,Z of the landing target [m]")
+    s.add_argument("--target", default=None, help="X,Y,Z of the landing target [m] (with "
+                   "--target-velocity: where the moving pad is at the start)")
+    s.add_argument("--target-velocity", default=None, metavar="VX,VY,VZ",
+                   help="velocity of a moving pad [m/s], constant; touchdown matches it "
+                        "(planned by the successive-convexification reference)")
     s.add_argument("--solver-dir", default=None,
                    help="use the generated solver in this tree instead of the reference")
     s.add_argument("--no-fallback", action="store_true",
@@ -58,6 +62,11 @@ def run(args) -> int:
         print(f"pdgc: warning: {w}", file=sys.stderr)
     pos, vel, mass = parse_state(args.state)
     target = parse_vector3("--target", args.target) if args.target else (0.0, 0.0, 0.0)
+    pad_velocity = parse_vector3("--target-velocity", args.target_velocity) \
+        if args.target_velocity else None
+    if vehicle.booster is not None or pad_velocity is not None:
+        return _run_booster(args, vehicle, horizon, pos, vel, mass, target,
+                            pad_velocity or (0.0, 0.0, 0.0))
     if args.solver_dir:
         from codegen.bind import load_solver
         solver = load_solver(args.solver_dir)
@@ -124,3 +133,51 @@ def _rows(traj, m) -> list:
         ("solve time", f"{traj.solve_time_s * 1e3:.2f} ms"),
     ]
     return rows
+
+
+def _run_booster(args, vehicle, horizon, pos, vel, mass, pad, pad_velocity) -> int:
+    """Vehicles with booster additions (drag, thrust-rate limit, final
+    approach) and moving pads: the successive-convexification reference
+    (codegen/model/scvx.py). No generated solver plans them yet, and the
+    plan meets the pad or there is none (no best reachable plan)."""
+    from codegen.model.analysis import margins
+    from codegen.booster import BoosterReference
+    for option, given in (("--solver-dir", args.solver_dir),
+                          ("--reserve-throttle", args.reserve_throttle)):
+        if given is not None:
+            raise InputError(option, given, "not available for a booster vehicle or a moving "
+                                            "pad (planned by the successive-convexification "
+                                            "reference only)")
+    solver = BoosterReference(vehicle, horizon)
+    traj = solver.solve(pos, vel, mass, args.tof, pad, pad_velocity)
+    if traj.status == "input_refused":
+        raise InputError("input", traj.message, "refused by the solver")
+    if args.json:
+        print(traj.to_json())
+    else:
+        rows = _rows(traj, margins(traj, vehicle, traj.target_m))
+        rows[1:1] = [
+            ("convexification", f"{traj.convergence} after {traj.passes} passes "
+                                f"(defect {traj.defect_position_m:.3g} m, "
+                                f"{traj.defect_velocity_mps:.3g} m/s)"),
+            ("predicted terminal error",
+             f"{_norm(traj.predicted_position_error_m):.3g} m, "
+             f"{_norm(traj.predicted_velocity_error_mps):.3g} m/s (plan flown open loop "
+             f"under drag)"),
+        ]
+        print_table(rows)
+    if args.plot:
+        if traj.solved:
+            from codegen.plot import plot_trajectory
+            plot_trajectory(traj, vehicle, args.plot, traj.target_m)
+            if not args.json:
+                print(f"  plot written to {args.plot}")
+        else:
+            print(f"pdgc: no plot: status {traj.status}", file=sys.stderr)
+    return 0 if traj.solved else 1
+
+
+def _norm(x) -> float:
+    import math
+    vals = [float(v) for v in x]
+    return math.sqrt(sum(v * v for v in vals))
