@@ -72,11 +72,15 @@ def size_totals(archive: Path) -> tuple:
     return int(last[0]), int(last[1]), int(last[2])
 
 
-def build(cfg: Config, backend: str, horizon: int) -> Build:
+def build(cfg: Config, backend: str, horizon: int, precision: str = "double",
+          cflags: str | None = None) -> Build:
+    """Generate and compile one tree (``cflags``: the tree's CFLAGS, default cfg.cflags;
+    position-independent code added; the harness gets the same)."""
+    cflags = cfg.cflags if cflags is None else cflags
     base = cfg.work_dir / f"{backend}-N{horizon}"
     tree = base / "tree"
     say(f"generating {backend} N={horizon}")
-    manifest = generate(cfg.vehicle_path, horizon, tree, backend=backend)
+    manifest = generate(cfg.vehicle_path, horizon, tree, backend=backend, precision=precision)
     gen_s = float(manifest["generation_seconds"])
     prefix = manifest["c_name"]
     lib = f"build/lib{prefix}_guidance.a"
@@ -87,7 +91,11 @@ def build(cfg: Config, backend: str, horizon: int) -> Build:
     # headers trip -Wunused-variable in our adapter (the flags do not change
     # the machine code).
     t0 = time.perf_counter()
-    r = subprocess.run(["make", "-j2", "CFLAGS=-O2 -fPIC", "STRICT=-std=c99 -Wall -Wextra", lib],
+    # the tree's FP_CONTRACT option (templates/Makefile.j2) follows CFLAGS on its
+    # command lines, so a -ffp-contract in cflags is passed as that option
+    contract = re.findall(r"-ffp-contract=(\w+)", cflags)
+    fp = [f"FP_CONTRACT={contract[-1]}"] if contract else []
+    r = subprocess.run(["make", "-j2", f"CFLAGS={cflags} -fPIC", "STRICT=-std=c99 -Wall -Wextra", *fp, lib],
                        cwd=tree, capture_output=True, text=True)
     compile_s = time.perf_counter() - t0
     if r.returncode != 0:
@@ -95,7 +103,7 @@ def build(cfg: Config, backend: str, horizon: int) -> Build:
     archive = tree / lib
     text, data, bss = size_totals(archive)
     g_bytes, s_bytes = source_bytes(tree, manifest)
-    harness = build_harness(tree, manifest, archive, base / "harness")
+    harness = build_harness(tree, manifest, archive, base / "harness", cflags)
     b = Build(backend, horizon, tree, manifest, gen_s, compile_s, archive, harness, g_bytes, s_bytes,
               text, data, bss)
     b.sizeof = run_harness(b, [])[0]
@@ -117,14 +125,15 @@ def render_harness(prefix: str) -> str:
                                                     max_reps=MAX_REPS)
 
 
-def build_harness(tree: Path, manifest: dict, archive: Path, out_dir: Path) -> Path:
+def build_harness(tree: Path, manifest: dict, archive: Path, out_dir: Path,
+                  cflags: str = "-O2") -> Path:
     prefix = manifest["c_name"]
     out_dir.mkdir(parents=True, exist_ok=True)
     src = out_dir / f"{prefix}_bench_harness.c"
     write_atomic(src, render_harness(prefix))
     exe = out_dir / f"{prefix}_bench_harness"
     b = manifest["build"]
-    cmd = [_cc(), "-std=c99", "-O2", "-Wall", "-Wextra"]
+    cmd = [_cc(), "-std=c99", *cflags.split(), "-Wall", "-Wextra"]
     cmd += [f"-I{tree / d}" for d in b["include_dirs"]] + [f"-D{d}" for d in b["defines"]]
     cmd += [str(src), str(archive), "-lm", "-o", str(exe),
             "-Wl,--wrap=malloc,--wrap=free,--wrap=calloc,--wrap=realloc"]

@@ -109,6 +109,10 @@ class Config:
     reference_reps: int = 3            # reference solves per instance (after one warm-up)
     reference_search: bool = True      # one reference search (nominal) per horizon
     callgrind: bool = True             # instruction counts (valgrind) if available
+    #: Compiler flags of every backend's tree, harness and cffi module (the same for all);
+    #: PDGC_BENCH_CFLAGS, e.g. "-O2 -mfma -ffp-contract=fast" (the trees' FP_CONTRACT
+    #: option, templates/Makefile.j2) to measure with fused multiply-adds.
+    cflags: str = "-O2"
     progress: bool = True              # progress lines on the terminal
     vehicle_path: Path = DEMO_VEHICLE
     out_dir: Path = RESULTS_DIR
@@ -137,7 +141,8 @@ class Config:
                    qoco_max_horizon=_env_int("PDGC_BENCH_QOCO_MAX", d.qoco_max_horizon),
                    instances=_env_int("PDGC_BENCH_INSTANCES", d.instances),
                    c_budget_s=_env_float("PDGC_BENCH_C_BUDGET_S", d.c_budget_s),
-                   callgrind=os.environ.get("PDGC_BENCH_CALLGRIND", "1") != "0")
+                   callgrind=os.environ.get("PDGC_BENCH_CALLGRIND", "1") != "0",
+                   cflags=os.environ.get("PDGC_BENCH_CFLAGS", "").strip() or d.cflags)
 
     def backends_at(self, horizon: int) -> list:
         return [b for b in self.backends

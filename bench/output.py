@@ -41,22 +41,26 @@ def table_markdown(results: dict) -> str:
              f"Run {meta['date_utc']}, {meta['elapsed_s']:.0f} s, commit {meta['git_commit']}"
              + (" (with uncommitted changes in codegen/ or templates/)"
                 if meta["codegen_or_templates_modified"] else "")
-             + f"; {meta['cpus']} CPUs ({meta['cpu']}), {meta['cc']}; "
+             + f"; {meta['cpus']} CPUs ({meta['cpu']}), {meta['cc']}; every backend, its "
+             f"harness and the archive under cffi compiled with `{meta.get('cflags', '-O2')} "
+             f"-fPIC` (PDGC_BENCH_CFLAGS; contraction is off unless the flags say "
+             f"-ffp-contract=fast); "
              f"load average at start {meta['load_average_start'][0]}, at end "
              f"{meta['load_average_end'][0]} (a shared machine: read the ratios).", "",
              f"Horizons {', '.join(map(str, cfg['horizons']))}; {len(results['instances'])} "
              f"instances; fixed time of flight {cfg['time_of_flight_s']:g} s.", "",
              "## Solve time and accuracy (fixed time of flight)", "",
-             "| N | backend | median | worst (p99) | x native | best | best x native | "
+             "| N | backend | median | instructions (callgrind, nominal) | worst (p99) | x native | best | best x native | "
              "cffi call (overhead) | Python solve() | "
              "iterations med/max | rel. objective error | optimal | search median (solves) | "
              "search x native |",
-             "|---:|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|"]
+             "|---:|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|"]
     for r in rows:
         cffi = (f"{_t(r.get('cffi_call_median_s'))} (+{_t(r.get('call_overhead_s'))})"
                 if r["backend"] != REFERENCE else f"core {_t(r.get('core_median_s'))}")
         lines.append(
-            f"| {r['horizon']} | {r['label']} | {_t(r['median_s'])} | {_t(r['worst_s'])}"
+            f"| {r['horizon']} | {r['label']} | {_t(r['median_s'])} | "
+            f"{_n(r.get('instructions')) if r.get('instructions') else '-'} | {_t(r['worst_s'])}"
             + (f" ({_t(r['p99_s'])})" if r.get("p99_s") else "") + " | "
             f"{_n(r['ratio_to_native'], '{:.2f}')} | {_t(r.get('best_s'))} | "
             f"{_n(r.get('best_ratio_to_native'), '{:.2f}')} | {cffi} | "

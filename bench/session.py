@@ -155,7 +155,7 @@ def machine_meta(sess: Session) -> dict:
     return {"date_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
             "elapsed_s": round(time.time() - sess.started, 1),
             "cpu": cpu, "cpus": os.cpu_count(), "python": platform.python_version(),
-            "cc": cc[0] if cc else "", "git_commit": _git("rev-parse", "--short", "HEAD"),
+            "cc": cc[0] if cc else "", "cflags": sess.cfg.cflags, "git_commit": _git("rev-parse", "--short", "HEAD"),
             "codegen_or_templates_modified": bool(dirty),
             "load_average_start": [round(x, 2) for x in sess.load_start],
             "load_average_end": [round(x, 2) for x in os.getloadavg()]}
@@ -184,8 +184,8 @@ def notes(cfg: Config) -> list:
         "tolerances, 1e-9); 'Clarabel core' is Clarabel's own solve time.",
         "Relative objective error: |objective - reference| / |reference| at the same instance, "
         "worst over instances.",
-        "Machine code: `size -t` text (code + read-only data) of the compiled archive "
-        "(-O2 -fPIC); static RAM: data + bss of the same. The native backend keeps all its state "
+        f"Machine code: `size -t` text (code + read-only data) of the compiled archive "
+        f"({cfg.cflags} -fPIC); static RAM: data + bss of the same. The native backend keeps all its state "
         "in the caller-owned workspace (sizeof(<prefix>_workspace), from the harness; in "
         "parentheses the size the generated header states, computed at generation time); the "
         "cvxpygen backends keep theirs in global data (static RAM). Heap: the harness wraps "
