@@ -2186,8 +2186,8 @@ static inline void corr_cone_4(pdg_socp_work *w, int c, int o, real smu)
  * Returns 0, or -1 if s or z has left the interior of the cone. */
 static int nt_cone_any(pdg_socp_work *w, int c, int o, int q)
 {
-    int k;
     {
+        int k;
         const real *s = w->s + o;
         const real *z = w->z + o;
         real *wb = w->ntw + o;
