@@ -6,6 +6,9 @@ bar: a plain line with the same figures (tqdm's own formatting) every
 ``line_every_s`` seconds and/or every ``line_every``-th item, and a last
 one at the end, so that a log stays short. ``enabled=False`` (the commands'
 ``--no-progress``) shows nothing at all.
+
+Also the local process pool the long commands share (``bounded_map``):
+envelope campaigns and closed-loop batches.
 """
 
 from __future__ import annotations
@@ -92,3 +95,27 @@ class Progress:
         self.last_line = time.monotonic()
         self.last_printed = self.n
         print(self.line(), file=self.stream, flush=True)
+
+
+def bounded_map(fn, items, workers: int, initializer, initargs, in_flight: int):
+    """Yield ``fn(item)`` for every item, in the order they finish, from
+    ``workers`` spawned processes (a fresh interpreter each: nothing compiled
+    or loaded here is shared with them), each set up by ``initializer(*initargs)``,
+    with at most ``in_flight`` tasks submitted at once. Closing the generator
+    early cancels what has not started."""
+    import multiprocessing
+    from collections import deque
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
+                               initializer=initializer, initargs=initargs)
+    queue, running = deque(items), set()
+    try:
+        while queue or running:
+            while queue and len(running) < in_flight:
+                running.add(pool.submit(fn, queue.popleft()))
+            done, running = wait(running, return_when=FIRST_COMPLETED)
+            for fut in done:
+                yield fut.result()
+    finally:
+        pool.shutdown(wait=not running, cancel_futures=True)

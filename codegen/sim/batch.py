@@ -86,22 +86,9 @@ def _flights(solver_dir, solver, errors, settings, seed, todo, workers):
         for i in todo:
             yield _fly_timed(solver, errors, settings, seed, i)
         return
-    import multiprocessing
-    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
-    from collections import deque
-    pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
-                               initializer=_worker_init,
-                               initargs=(str(solver_dir), errors, settings, seed))
-    queue, running = deque(todo), set()
-    try:
-        while queue or running:
-            while queue and len(running) < 2 * workers:
-                running.add(pool.submit(_worker_fly, queue.popleft()))
-            done, running = wait(running, return_when=FIRST_COMPLETED)
-            for fut in done:
-                yield fut.result()
-    finally:
-        pool.shutdown(wait=not running, cancel_futures=True)
+    from codegen.progress import bounded_map
+    yield from bounded_map(_worker_fly, todo, workers, _worker_init,
+                           (str(solver_dir), errors, settings, seed), in_flight=2 * workers)
 
 
 def run_batch(solver_dir, runs: int, seed: int, errors: ErrorModel, settings: Settings,

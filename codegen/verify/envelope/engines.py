@@ -31,24 +31,14 @@ def run_local(ctx: CaseContext, indices, workers: int, on_record) -> None:
         for i in indices:
             on_record(run_case(ctx, i))
         return
-    import multiprocessing
-    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+    from contextlib import closing
 
-    # spawn: a fresh interpreter per worker; nothing compiled or loaded in this
-    # process is shared with the workers.
-    pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
-                               initializer=_pool_init, initargs=(ctx,))
-    todo = deque(indices)
-    running = set()
-    try:
-        while todo or running:
-            while todo and len(running) < 4 * workers:
-                running.add(pool.submit(_pool_run, todo.popleft()))
-            done, running = wait(running, return_when=FIRST_COMPLETED)
-            for fut in done:
-                on_record(fut.result())
-    finally:
-        pool.shutdown(wait=not running, cancel_futures=True)
+    from codegen.progress import bounded_map
+    # closing: a failing on_record (a full disk, say) cancels the cases not started.
+    with closing(bounded_map(_pool_run, indices, workers, _pool_init, (ctx,),
+                             in_flight=4 * workers)) as records:
+        for record in records:
+            on_record(record)
 
 
 def run_dask(ctx: CaseContext, indices, address: str, on_record) -> None:
